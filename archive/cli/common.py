@@ -1,0 +1,113 @@
+"""What every command shares: the records and database options, output formats, and mapping errors to exits."""
+
+from __future__ import annotations
+
+import contextlib
+import csv
+import datetime as dt
+import json
+import os
+import sys
+from collections.abc import Iterator, Sequence
+from enum import Enum
+from pathlib import Path
+from typing import Annotated, Any
+
+import typer
+from rich.console import Console
+
+from ..files import FileExists
+from ..problems import ArchiveInvalid, Problem
+
+RECORDS_ENV = "ARCHIVE_RECORDS"
+
+RecordsOption = Annotated[
+    Path,
+    typer.Option(
+        "--records",
+        "-r",
+        envvar=RECORDS_ENV,
+        help="Folder of YAML records.",
+        file_okay=False,
+    ),
+]
+DbOption = Annotated[
+    str | None,
+    typer.Option("--db", envvar="ARCHIVE_DB", help="SQLAlchemy URL of the index (default: SQLite in .archive/)."),
+]
+
+
+class Format(str, Enum):
+    table = "table"
+    json = "json"
+    csv = "csv"
+
+
+FormatOption = Annotated[Format, typer.Option("--format", "-f", help="table for people, json or csv for programs.")]
+
+out = Console(highlight=False, soft_wrap=True)
+err = Console(stderr=True, highlight=False, soft_wrap=True)
+
+
+def print_problems(problems: Sequence[Problem]) -> None:
+    for problem in sorted(problems):
+        style = "yellow" if problem.severity == "warning" else "red"
+        out.print(str(problem), style=style, markup=False)
+
+
+@contextlib.contextmanager
+def user_errors() -> Iterator[None]:
+    """Turn the library's exceptions into a message and an exit code, in one place for every command."""
+    try:
+        yield
+    except ArchiveInvalid as exc:
+        print_problems(exc.problems)
+        err.print(f"{exc}. Nothing was changed.", markup=False)
+        raise typer.Exit(1) from None
+    except (FileExists, FileNotFoundError, LookupError) as exc:
+        err.print(f"error: {exc.args[0] if exc.args else exc}", markup=False)
+        raise typer.Exit(1) from None
+    except ValueError as exc:
+        err.print(f"error: {exc}", markup=False)
+        raise typer.Exit(2) from None
+    except Exception as exc:
+        from sqlalchemy.exc import SQLAlchemyError
+
+        if isinstance(exc, SQLAlchemyError):
+            err.print(f"error: the index database could not be used: {exc}", markup=False)
+            err.print("check --db / ARCHIVE_DB, or delete the .archive folder and run `archive index`.")
+            raise typer.Exit(2) from None
+        raise
+
+
+def _plain(value: Any) -> Any:
+    if isinstance(value, dt.date):
+        return value.isoformat()
+    if isinstance(value, list | tuple):
+        return " ".join(map(str, value))
+    return value
+
+
+def emit_rows(rows: list[dict[str, Any]], columns: Sequence[str], fmt: Format, title: str = "") -> None:
+    """Rows as a rich table, JSON (a list of objects) or CSV."""
+    if fmt is Format.json:
+        sys.stdout.write(json.dumps(rows, indent=2, default=str, ensure_ascii=False) + "\n")
+        return
+    if fmt is Format.csv:
+        writer = csv.writer(sys.stdout, lineterminator="\n")
+        writer.writerow(columns)
+        for row in rows:
+            writer.writerow([_plain(row.get(c)) for c in columns])
+        return
+    from rich.table import Table
+
+    table = Table(title=title or None, show_lines=False, header_style="bold")
+    for column in columns:
+        table.add_column(column.replace("_", " "), overflow="fold")
+    for row in rows:
+        table.add_row(*("" if row.get(c) is None else str(_plain(row.get(c))) for c in columns))
+    out.print(table)
+
+
+def show_progress() -> bool:
+    return err.is_terminal and not os.environ.get("CI")

@@ -1,0 +1,30 @@
+"""The `archive` command line."""
+
+from __future__ import annotations
+
+import typer
+
+from . import catalog, records
+
+app = typer.Typer(
+    name="archive",
+    help="A knowledge base of finished A/B tests: file, check, index and find them.",
+    no_args_is_help=True,
+    add_completion=False,
+    pretty_exceptions_enable=False,
+)
+app.command("check")(records.check)
+app.command("new")(records.new)
+app.command("schema")(records.schema)
+app.command("index")(catalog.index)
+app.command("list")(catalog.list_tests)
+app.command("search")(catalog.search)
+app.command("show")(catalog.show)
+
+
+def main() -> None:
+    app()
+
+
+if __name__ == "__main__":
+    main()

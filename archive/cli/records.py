@@ -1,0 +1,94 @@
+"""Commands about record files: check, new, schema."""
+
+from __future__ import annotations
+
+import datetime as dt
+import json
+from pathlib import Path
+from typing import Annotated
+
+import typer
+
+from ..files import write_new
+from ..problems import blocking
+from ..record import record_schema
+from ..scaffold import Draft, ScaffoldError, arms_from_csv, arms_from_names, render
+from ..validate import check_archive
+from .common import Format, RecordsOption, emit_rows, err, out, print_problems, user_errors
+
+
+def check(
+    records: RecordsOption = Path("records"),
+    strict: Annotated[bool, typer.Option("--strict", help="Fail on warnings too.")] = False,
+    fmt: Annotated[Format, typer.Option("--format", "-f", help="table (one line per problem) or json.")] = Format.table,
+) -> None:
+    """Validate every record; print each problem as path:line: field: message."""
+    with user_errors():
+        report = check_archive(records)
+    failing = blocking(report.problems, strict)
+    if fmt is Format.json:
+        emit_rows([p.as_dict() for p in report.problems], ["path", "line", "field", "message", "severity"], Format.json)
+    else:
+        print_problems(report.problems)
+    n_err = sum(p.severity == "error" for p in report.problems)
+    n_warn = len(report.problems) - n_err
+    err.print(f"{report.files} record(s) checked: {n_err} error(s), {n_warn} warning(s).")
+    if failing:
+        raise typer.Exit(1)
+
+
+def new(
+    record_id: Annotated[str, typer.Argument(metavar="ID", help="Id of the new test (lowercase-with-hyphens).")],
+    title: Annotated[str, typer.Option(help="One-line title.")],
+    page_area: Annotated[str, typer.Option(help="Where in the shop, e.g. product-page.")],
+    theme: Annotated[list[str], typer.Option(help="Hypothesis theme; repeat for several.")],
+    arm: Annotated[list[str] | None, typer.Option(help="Arm name; repeat (first is control).")] = None,
+    results: Annotated[
+        Path | None, typer.Option(help="CSV with columns arm, visitors, conversions, revenue (one row per arm).")
+    ] = None,
+    control: Annotated[str | None, typer.Option(help="Which arm is the control.")] = None,
+    status: Annotated[str | None, typer.Option(help="planned, running, finished or stopped-early.")] = None,
+    owner: Annotated[str | None, typer.Option(help="Who runs the test.")] = None,
+    started: Annotated[dt.datetime | None, typer.Option(formats=["%Y-%m-%d"], help="First day.")] = None,
+    ended: Annotated[dt.datetime | None, typer.Option(formats=["%Y-%m-%d"], help="Last day.")] = None,
+    hypothesis: Annotated[str, typer.Option(help="The hypothesis, in one sentence.")] = "",
+    records: RecordsOption = Path("records"),
+) -> None:
+    """Start a record from options or a results CSV; never overwrites a file."""
+    with user_errors():
+        try:
+            if results is not None:
+                arms = arms_from_csv(results, control)
+            else:
+                arms = arms_from_names(arm or ["control", "b"], control)
+            draft = Draft(
+                id=record_id,
+                title=title,
+                page_area=page_area,
+                themes=theme,
+                arms=arms,
+                status=status or ("finished" if results is not None else "planned"),
+                owner=owner,
+                started=started.date() if started else None,
+                ended=ended.date() if ended else None,
+                hypothesis=hypothesis,
+            )
+            text = render(draft)
+        except ScaffoldError as exc:
+            print_problems(exc.problems)
+            raise typer.Exit(2) from None
+        target = records / f"{record_id}.yaml"
+        write_new(target, text)
+    out.print(f"wrote {target}; fill in the blanks, then run `archive check`.", markup=False)
+
+
+def schema(
+    markdown: Annotated[bool, typer.Option("--markdown", help="A field reference in Markdown instead.")] = False,
+) -> None:
+    """Print the JSON Schema of a record (for editors), or the field reference."""
+    if markdown:
+        from ..fieldref import field_reference
+
+        typer.echo(field_reference(), nl=False)
+    else:
+        typer.echo(json.dumps(record_schema(), indent=2, ensure_ascii=False))

@@ -1,0 +1,157 @@
+"""Finding tests again: filters, full-text search and DataFrames for notebooks.
+
+All functions read the index built by :func:`archive.index.index_archive` and return plain data: lists of dicts
+(one per test, sorted by start date then id), validated :class:`Record` objects, or pandas DataFrames.
+
+Date filters select the tests that were running at some point in the range: ``since`` keeps tests that ended (or,
+without an end date, started) on or after it, ``until`` keeps tests that started on or before it.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import re
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any
+
+from sqlalchemy import Engine, and_, func, or_, select, text
+from sqlalchemy.sql import ColumnElement
+
+from .database import search_document_sql
+from .record import Record
+from .tables import ArmRow, RecordRow, SegmentRow, TagRow, ThemeRow
+
+if TYPE_CHECKING:
+    import pandas as pd
+
+LIST_COLUMNS = ("id", "title", "status", "page_area", "themes", "started", "ended", "owner", "outcome", "arms")
+
+
+class NotIndexed(LookupError):
+    """The index does not hold what was asked for."""
+
+
+@dataclass(frozen=True)
+class Filters:
+    theme: str | None = None
+    page_area: str | None = None
+    status: str | None = None
+    outcome: str | None = None
+    owner: str | None = None
+    tag: str | None = None
+    since: dt.date | None = None
+    until: dt.date | None = None
+    text: str | None = None
+
+
+def find_tests(engine: Engine, filters: Filters | None = None) -> list[dict[str, Any]]:
+    """Tests matching every given filter, as plain dicts with the keys of ``LIST_COLUMNS``."""
+    f = filters or Filters()
+    R = RecordRow
+    conditions: list[ColumnElement[bool]] = []
+    if f.theme:
+        conditions.append(R.id.in_(select(ThemeRow.record_id).where(ThemeRow.theme == f.theme)))  # type: ignore[attr-defined]
+    if f.tag:
+        conditions.append(R.id.in_(select(TagRow.record_id).where(TagRow.tag == f.tag)))  # type: ignore[attr-defined]
+    for name in ("page_area", "status", "outcome", "owner"):
+        value = getattr(f, name)
+        if value:
+            conditions.append(getattr(R, name) == value)
+    if f.since:
+        conditions.append(func.coalesce(R.ended, R.started) >= f.since)
+    if f.until:
+        conditions.append(R.started <= f.until)  # type: ignore[operator]
+    if f.text:
+        conditions.append(R.id.in_(_text_matches(engine, f.text)))  # type: ignore[attr-defined]
+    query = select(
+        R.id, R.title, R.status, R.page_area, R.themes_text, R.started, R.ended, R.owner, R.outcome, R.arm_count
+    ).where(and_(*conditions))
+    query = query.order_by(R.started, R.id)  # type: ignore[arg-type]
+    with engine.connect() as conn:
+        rows = conn.execute(query).all()
+    return [
+        {
+            "id": r[0],
+            "title": r[1],
+            "status": r[2],
+            "page_area": r[3],
+            "themes": r[4].split(),
+            "started": r[5],
+            "ended": r[6],
+            "owner": r[7],
+            "outcome": r[8],
+            "arms": r[9],
+        }
+        for r in rows
+    ]
+
+
+def _text_matches(engine: Engine, words: str) -> Any:
+    terms = re.findall(r"\w+", words.lower())
+    if not terms:
+        raise ValueError("the search text has no words")
+    if engine.dialect.name == "sqlite":
+        # every word must occur (in any searched column); quoting keeps FTS5 operators out of user text
+        match = " ".join(f'"{t}"' for t in terms)
+        return text("SELECT record_id FROM record_search WHERE record_search MATCH :q").bindparams(q=match)
+    if engine.dialect.name == "postgresql":
+        document = text(f"to_tsvector('english', {search_document_sql()})")
+        query = func.plainto_tsquery("english", " ".join(terms))
+        return select(RecordRow.id).where(document.op("@@")(query))  # type: ignore[attr-defined]
+    like = [
+        or_(*(col.ilike(f"%{t}%") for col in (RecordRow.title, RecordRow.hypothesis, RecordRow.learnings_text)))
+        for t in terms
+    ]  # type: ignore[attr-defined]
+    return select(RecordRow.id).where(and_(*like))
+
+
+def get_record(engine: Engine, record_id: str) -> Record:
+    """The validated record with this id, rebuilt from the index."""
+    with engine.connect() as conn:
+        body = conn.execute(select(RecordRow.body).where(RecordRow.id == record_id)).scalar_one_or_none()
+    if body is None:
+        raise NotIndexed(f"no test {record_id!r} in the index; check the id or run `archive index`")
+    return Record.model_validate_json(body)
+
+
+def index_size(engine: Engine) -> int:
+    with engine.connect() as conn:
+        return int(conn.execute(select(func.count()).select_from(RecordRow)).scalar_one())
+
+
+# --- DataFrames -----------------------------------------------------------------------------------------
+
+
+def tests_frame(engine: Engine, filters: Filters | None = None) -> pd.DataFrame:
+    """One row per test (columns of ``LIST_COLUMNS``)."""
+    import pandas as pd
+
+    return pd.DataFrame(find_tests(engine, filters), columns=list(LIST_COLUMNS))
+
+
+def arms_frame(engine: Engine, filters: Filters | None = None) -> pd.DataFrame:
+    """One row per arm of each matching test, with its conversion rate."""
+    import pandas as pd
+
+    ids = [t["id"] for t in find_tests(engine, filters)]
+    columns = [c.name for c in ArmRow.__table__.columns]  # type: ignore[attr-defined]
+    with engine.connect() as conn:
+        table = ArmRow.__table__  # type: ignore[attr-defined]
+        rows = conn.execute(select(table).order_by(table.c.record_id, table.c.position)).mappings().all()
+    frame = pd.DataFrame([dict(r) for r in rows], columns=columns)
+    frame = frame[frame["record_id"].isin(ids)].reset_index(drop=True)
+    frame["conversion_rate"] = frame["conversions"] / frame["visitors"].where(frame["visitors"] > 0)
+    return frame
+
+
+def segments_frame(engine: Engine, filters: Filters | None = None) -> pd.DataFrame:
+    """One row per test, segment dimension, segment value and arm."""
+    import pandas as pd
+
+    ids = [t["id"] for t in find_tests(engine, filters)]
+    columns = [c.name for c in SegmentRow.__table__.columns]  # type: ignore[attr-defined]
+    with engine.connect() as conn:
+        rows = conn.execute(select(SegmentRow.__table__)).mappings().all()  # type: ignore[attr-defined]
+    frame = pd.DataFrame([dict(r) for r in rows], columns=columns)
+    frame = frame[frame["record_id"].isin(ids)]
+    return frame.sort_values(["record_id", "dimension", "value", "arm"]).reset_index(drop=True)

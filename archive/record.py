@@ -1,0 +1,193 @@
+"""The record of one test: the models that validate a YAML file, give the JSON Schema and feed the index.
+
+One hierarchy serves all three uses. ``*Core`` classes hold the plain columns; the record models below extend
+them with nested parts and validate the YAML; the table models in :mod:`archive.tables` inherit the same cores,
+so a column cannot drift from the field it stores. Every field carries a description: the field reference in
+the docs and the JSON Schema are generated from them.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import re
+from typing import Any, Literal, get_args
+
+from pydantic import ConfigDict
+from sqlalchemy import String
+from sqlmodel import Field, SQLModel
+
+SLUG = r"^[a-z0-9]+(?:-[a-z0-9]+)*$"
+_SLUG_RE = re.compile(SLUG)
+
+_STRICT = ConfigDict(extra="forbid", allow_inf_nan=False)  # strictness is asked for when validating YAML
+
+
+def is_slug(text: str) -> bool:
+    return bool(_SLUG_RE.match(text)) and len(text) <= 80
+
+
+def canonical_label(text: str) -> str:
+    """The one spelling of a theme, tag or page area: lowercase words joined by hyphens."""
+    return "-".join(re.findall(r"[a-z0-9]+", text.lower()))
+
+
+Status = Literal["planned", "running", "finished", "stopped-early"]
+Outcome = Literal["ship", "keep-control", "iterate"]
+STATUSES: tuple[str, ...] = get_args(Status)
+OUTCOMES: tuple[str, ...] = get_args(Outcome)
+
+
+class RecordCore(SQLModel):
+    """The single-valued fields of a record (also the columns of the index's record table)."""
+
+    model_config = _STRICT  # type: ignore[assignment]
+
+    id: str = Field(
+        description="Unique id, a lowercase slug (letters, digits, hyphens); the file is named <id>.yaml.",
+        min_length=1,
+        max_length=80,
+    )
+    title: str = Field(description="One line a colleague would recognise the test by.", min_length=1)
+    status: Status = Field(description="planned, running, finished or stopped-early.", sa_type=String)
+    owner: str | None = Field(default=None, description="Who ran the test (a person or team).")
+    started: dt.date | None = Field(default=None, description="First day of traffic (YYYY-MM-DD).")
+    ended: dt.date | None = Field(default=None, description="Last day of traffic (YYYY-MM-DD).")
+    page_area: str = Field(
+        description="Where in the shop the change lives, e.g. product-page, checkout, basket.", min_length=1
+    )
+    hypothesis: str = Field(
+        description="Because we saw X, we believe changing Y for Z will increase conversion.", min_length=1
+    )
+    iterates_on: str | None = Field(default=None, description="Id of the earlier test this one is a new round of.")
+
+
+class Plan(SQLModel):
+    """What was decided before the test started (pre-registration)."""
+
+    model_config = _STRICT  # type: ignore[assignment]
+
+    baseline_rate: float | None = Field(
+        default=None, gt=0, lt=1, description="Expected conversion rate of control, as a fraction (0.031 = 3.1%)."
+    )
+    minimum_lift: float | None = Field(
+        default=None,
+        gt=0,
+        description="Smallest relative lift in conversion worth detecting, as a fraction (0.05 = +5%).",
+    )
+    alpha: float = Field(default=0.05, gt=0, lt=1, description="Two-sided significance level.")
+    power: float = Field(default=0.8, gt=0, lt=1, description="Planned power at the minimum lift.")
+    visitors_per_arm: int | None = Field(default=None, gt=0, description="Planned visitors in each arm.")
+    days: int | None = Field(default=None, gt=0, description="Planned duration in days.")
+    split: dict[str, float] | None = Field(
+        default=None,
+        description="Planned share of traffic per arm name (weights, normalised; omitted = equal split).",
+    )
+    segments: list[str] = Field(
+        default_factory=list,
+        description="Segment dimensions named before the test started; other cuts are exploratory.",
+    )
+
+
+class ArmCore(SQLModel):
+    """Per-arm results (also the columns of the index's arm table)."""
+
+    model_config = _STRICT  # type: ignore[assignment]
+
+    name: str = Field(description="Short name of the arm, unique in the test.", min_length=1, max_length=60)
+    control: bool = Field(default=False, description="true for the one arm that is the control.")
+    description: str = Field(default="", description="What visitors in this arm saw.")
+    visitors: int | None = Field(default=None, ge=0, description="Visitors assigned to the arm.")
+    conversions: int | None = Field(
+        default=None, ge=0, description="Visitors who converted (ordered at least once); not the order count."
+    )
+    orders: int | None = Field(default=None, ge=0, description="Orders placed by the arm's visitors.")
+    revenue: float | None = Field(default=None, ge=0, description="Total revenue of those orders.")
+    revenue_sum_of_squares: float | None = Field(
+        default=None,
+        ge=0,
+        description="Sum over visitors of (revenue of the visitor)^2; makes the variance of revenue known.",
+    )
+
+
+class Arm(ArmCore):
+    """One arm of the test as written in the record."""
+
+
+class SegmentCounts(SQLModel):
+    """One arm's results inside one segment."""
+
+    model_config = _STRICT  # type: ignore[assignment]
+
+    visitors: int = Field(ge=0, description="Visitors of the arm in this segment.")
+    conversions: int = Field(ge=0, description="Converting visitors of the arm in this segment.")
+    revenue: float | None = Field(default=None, ge=0, description="Revenue of the arm in this segment.")
+
+
+class Decision(SQLModel):
+    """What the team actually did with the result."""
+
+    model_config = _STRICT  # type: ignore[assignment]
+
+    outcome: Outcome = Field(description="ship (roll out an arm), keep-control, or iterate (test again).")
+    arm: str | None = Field(default=None, description="The arm shipped, or carried into the next round.")
+    rationale: str = Field(default="", description="Why, in the words you would use in the review.")
+    decided: dt.date | None = Field(default=None, description="Date of the decision.")
+
+
+class Link(SQLModel):
+    model_config = _STRICT  # type: ignore[assignment]
+
+    label: str = Field(min_length=1, description="What the link points to.")
+    url: str = Field(min_length=1, description="An http(s) address.")
+
+
+SecondaryMetric = Literal["revenue_per_visitor", "average_order_value"]
+
+#: segments[dimension][value][arm] -> counts
+Segments = dict[str, dict[str, dict[str, SegmentCounts]]]
+
+
+class Record(RecordCore):
+    """A test as filed in ``records/<id>.yaml``."""
+
+    themes: list[str] = Field(
+        min_length=1, description="Hypothesis themes, e.g. social-proof, shipping-cost (lowercase, hyphens)."
+    )
+    tags: list[str] = Field(default_factory=list, description="Free labels for finding the test again.")
+    primary_metric: Literal["conversion"] = Field(
+        default="conversion", description="The decision metric: converting visitors per visitor."
+    )
+    secondary_metrics: list[SecondaryMetric] = Field(
+        default_factory=lambda: ["revenue_per_visitor", "average_order_value"],
+        description="Metrics read after conversion: revenue_per_visitor, average_order_value.",
+    )
+    plan: Plan | None = Field(default=None, description="The pre-registered plan.")
+    arms: list[Arm] = Field(min_length=1, description="The arms; exactly one has control: true.")
+    orders_file: str | None = Field(
+        default=None,
+        description="CSV next to the record, one row per order: columns arm, order_id (or visitor_id), value.",
+    )
+    segments: Segments = Field(
+        default_factory=dict,
+        description="Results by segment: dimension -> segment value -> arm name -> counts.",
+    )
+    decision: Decision | None = Field(default=None, description="The decision actually taken.")
+    learnings: list[str] = Field(default_factory=list, description="What the team learned, one point per item.")
+    links: list[Link] = Field(default_factory=list, description="Designs, dashboards, tickets.")
+
+    def control_arm(self) -> Arm:
+        return next(arm for arm in self.arms if arm.control)
+
+    def arm(self, name: str) -> Arm:
+        for candidate in self.arms:
+            if candidate.name == name:
+                return candidate
+        raise KeyError(name)
+
+
+def record_schema() -> dict[str, Any]:
+    """JSON Schema of a record, for editors that validate YAML as it is typed."""
+    schema = Record.model_json_schema()
+    schema["$schema"] = "https://json-schema.org/draft/2020-12/schema"
+    schema["title"] = "Test record"
+    return schema

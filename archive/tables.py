@@ -1,0 +1,77 @@
+"""The index's tables: SQLModel table models built on the same cores as the record models.
+
+Table models do not validate on creation; rows are always made from a :class:`~archive.record.Record` that was
+validated first. ``body`` keeps the whole validated record as JSON so that ``show`` and the analyses can rebuild
+it without reading the YAML again.
+"""
+
+from __future__ import annotations
+
+from sqlalchemy import Column, Index, Text
+from sqlmodel import Field, SQLModel
+
+from .record import ArmCore, RecordCore
+
+#: bump when the tables change; an index of another version is rebuilt from the records
+SCHEMA_VERSION = 1
+
+
+class RecordRow(RecordCore, table=True):
+    __tablename__ = "record"
+
+    id: str = Field(primary_key=True)
+    path: str = Field(index=True, description="Record file, relative to the records folder.")
+    content_hash: str = Field(description="SHA-256 of the file's bytes when it was indexed.")
+    orders_file: str | None = Field(default=None, description="The record's orders file, if any.")
+    outcome: str | None = Field(default=None, index=True, description="decision.outcome")
+    decision_arm: str | None = None
+    arm_count: int = 0
+    themes_text: str = Field(default="", description="Themes joined by spaces.")
+    learnings_text: str = Field(default="", sa_column=Column(Text, nullable=False, default=""))
+    body: str = Field(sa_column=Column(Text, nullable=False), description="The validated record as JSON.")
+
+
+class ArmRow(ArmCore, table=True):
+    __tablename__ = "arm"
+
+    record_id: str = Field(primary_key=True, foreign_key="record.id", ondelete="CASCADE")
+    name: str = Field(primary_key=True)
+    position: int = 0
+
+
+class ThemeRow(SQLModel, table=True):
+    __tablename__ = "record_theme"
+
+    record_id: str = Field(primary_key=True, foreign_key="record.id", ondelete="CASCADE")
+    theme: str = Field(primary_key=True, index=True)
+
+
+class TagRow(SQLModel, table=True):
+    __tablename__ = "record_tag"
+
+    record_id: str = Field(primary_key=True, foreign_key="record.id", ondelete="CASCADE")
+    tag: str = Field(primary_key=True, index=True)
+
+
+class SegmentRow(SQLModel, table=True):
+    __tablename__ = "segment"
+
+    record_id: str = Field(primary_key=True, foreign_key="record.id", ondelete="CASCADE")
+    dimension: str = Field(primary_key=True)
+    value: str = Field(primary_key=True)
+    arm: str = Field(primary_key=True)
+    visitors: int
+    conversions: int
+    revenue: float | None = None
+
+
+class MetaRow(SQLModel, table=True):
+    __tablename__ = "index_meta"
+
+    key: str = Field(primary_key=True)
+    value: str
+
+
+Index("ix_record_started", RecordRow.__table__.c.started)  # type: ignore[attr-defined]
+
+CHILD_TABLES = (ArmRow, ThemeRow, TagRow, SegmentRow)

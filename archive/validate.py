@@ -1,0 +1,398 @@
+"""Checking records: one file at a time, then the archive as a whole.
+
+``load_record`` parses a file (see :mod:`archive.yamlsource`), validates it against :class:`Record` and runs
+the checks that need the whole record (one control, counts that add up, dates in order, ...).
+``archive_problems`` runs the checks that need every record (duplicate ids, ``iterates_on`` targets, a theme
+spelled two ways). ``check_archive`` does both for a folder. Nothing here writes to a file.
+"""
+
+from __future__ import annotations
+
+import difflib
+import types
+import typing
+from collections import defaultdict
+from collections.abc import Callable, Hashable, Iterable, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from pydantic import BaseModel, ValidationError
+
+from .orders import orders_path, read_orders
+from .problems import Problem
+from .record import Record, canonical_label, is_slug
+from .yamlsource import YamlDocument, YamlProblem, dotted, parse_yaml
+
+RECORD_SUFFIXES = (".yaml", ".yml")
+_TOLERANCE = 1e-6  # relative slack when comparing money sums written with rounding
+
+
+@dataclass(frozen=True)
+class Summary:
+    """What the archive-wide checks need to know of one record."""
+
+    path: str
+    id: str
+    iterates_on: str | None
+    themes: tuple[str, ...]
+    tags: tuple[str, ...]
+    page_area: str
+
+    @classmethod
+    def of(cls, path: str, record: Record) -> Summary:
+        return cls(path, record.id, record.iterates_on, tuple(record.themes), tuple(record.tags), record.page_area)
+
+
+@dataclass
+class LoadedRecord:
+    path: str
+    record: Record
+    doc: YamlDocument
+
+    @property
+    def summary(self) -> Summary:
+        return Summary.of(self.path, self.record)
+
+
+@dataclass
+class CheckReport:
+    records: list[LoadedRecord] = field(default_factory=list)
+    problems: list[Problem] = field(default_factory=list)
+    files: int = 0
+
+
+def record_files(records_dir: Path) -> list[Path]:
+    """The record files of an archive folder (top level only), sorted."""
+    if not records_dir.is_dir():
+        raise FileNotFoundError(f"records folder {records_dir} does not exist; create it or pass --records")
+    return sorted(p for p in records_dir.iterdir() if p.suffix in RECORD_SUFFIXES and p.is_file())
+
+
+# --- one file -------------------------------------------------------------------------------------------
+
+
+def load_record(path: Path, raw: bytes | None = None) -> tuple[LoadedRecord | None, list[Problem]]:
+    """Parse and check one record file. Returns the record (None if it cannot be built) and its problems."""
+    where = str(path)
+    try:
+        doc = parse_yaml(where, path.read_bytes() if raw is None else raw)
+    except YamlProblem as exc:
+        return None, exc.problems
+    try:
+        record = Record.model_validate(doc.data, strict=True)
+    except ValidationError as exc:
+        return None, [_from_pydantic(doc, err) for err in exc.errors(include_url=False)]
+    problems = _RecordChecks(path, doc, record).run()
+    return LoadedRecord(where, record, doc), problems
+
+
+def _from_pydantic(doc: YamlDocument, err: Any) -> Problem:
+    loc: tuple[Hashable, ...] = tuple(err["loc"])
+    kind = err["type"]
+    if kind == "extra_forbidden":
+        known = _fields_at(loc[:-1])
+        near = difflib.get_close_matches(str(loc[-1]), known, n=1, cutoff=0.6)
+        hint = f"; did you mean {near[0]!r}?" if near else f"; known fields here: {', '.join(known)}"
+        message = f"unknown field {loc[-1]!r}{hint}"
+    elif kind == "missing":
+        message = "required field is missing"
+    else:
+        shown = repr(err.get("input"))
+        if len(shown) > 40:
+            shown = shown[:37] + "..."
+        message = f"{err['msg']} (got {shown})"
+        if kind == "string_type" and isinstance(err.get("input"), bool):
+            message += "; YAML reads yes/no/on/off as true/false: put the word in quotes"
+        if kind == "date_type" and isinstance(err.get("input"), str):
+            message = f"expected a date written YYYY-MM-DD without quotes (got {shown})"
+    return Problem(doc.path, doc.line_of(loc), dotted(loc), message)
+
+
+def _fields_at(loc: Sequence[Hashable]) -> list[str]:
+    """Field names of the model found at ``loc`` inside a record (for 'did you mean')."""
+    annotation: Any = Record
+    for part in loc:
+        annotation = _unwrap(annotation)
+        if isinstance(annotation, type) and issubclass(annotation, BaseModel):
+            info = annotation.model_fields.get(str(part))
+            if info is None:
+                return []
+            annotation = info.annotation
+        else:
+            args = typing.get_args(annotation)
+            annotation = args[-1] if args else None
+    annotation = _unwrap(annotation)
+    if isinstance(annotation, type) and issubclass(annotation, BaseModel):
+        return sorted(annotation.model_fields)
+    return []
+
+
+def _unwrap(annotation: Any) -> Any:
+    """Strip ``X | None``."""
+    if isinstance(annotation, types.UnionType) or typing.get_origin(annotation) is typing.Union:
+        args = [a for a in typing.get_args(annotation) if a is not type(None)]
+        return args[0] if len(args) == 1 else annotation
+    return annotation
+
+
+class _RecordChecks:
+    """The checks that need a whole, well-typed record."""
+
+    def __init__(self, path: Path, doc: YamlDocument, record: Record):
+        self.path, self.doc, self.r = path, doc, record
+        self.problems: list[Problem] = []
+
+    def add(self, loc: Sequence[Hashable], message: str, severity: str = "error") -> None:
+        self.problems.append(
+            Problem(self.doc.path, self.doc.line_of(loc), dotted(loc), message, severity)  # type: ignore[arg-type]
+        )
+
+    def run(self) -> list[Problem]:
+        self.identity()
+        self.labels()
+        self.arms()
+        self.dates_and_status()
+        self.plan()
+        self.segments()
+        self.decision()
+        self.orders_file()
+        self.links()
+        return self.problems
+
+    def identity(self) -> None:
+        r = self.r
+        if not is_slug(r.id):
+            self.add(("id",), f"{r.id!r} is not a safe id: use lowercase letters, digits and single hyphens")
+        elif r.id != self.path.stem:
+            self.add(("id",), f"id {r.id!r} does not match the file name {self.path.name!r}; rename one")
+        if r.iterates_on is not None and r.iterates_on == r.id:
+            self.add(("iterates_on",), "a test cannot iterate on itself")
+
+    def labels(self) -> None:
+        r = self.r
+        for name, values in (("themes", r.themes), ("tags", r.tags)):
+            seen: dict[str, int] = {}
+            for i, value in enumerate(values):
+                canon = canonical_label(value)
+                if not canon:
+                    self.add((name, i), "empty label")
+                elif canon in seen:
+                    self.add((name, i), f"{value!r} repeats {values[seen[canon]]!r}")
+                elif canon != value:
+                    self.add((name, i), f"write {canon!r} (lowercase, hyphens) so it groups with others", "warning")
+                seen.setdefault(canon, i)
+        if canonical_label(r.page_area) != r.page_area:
+            self.add(("page_area",), f"write {canonical_label(r.page_area)!r} (lowercase, hyphens)", "warning")
+
+    def arms(self) -> None:
+        arms = self.r.arms
+        controls = [i for i, a in enumerate(arms) if a.control]
+        if not controls:
+            self.add(("arms",), "no arm is the control; mark one with control: true")
+        for i in controls[1:]:
+            self.add(("arms", i, "control"), f"second control (arm {arms[controls[0]].name!r} is already control)")
+        seen: dict[str, int] = {}
+        for i, arm in enumerate(arms):
+            if arm.name in seen:
+                self.add(("arms", i, "name"), f"arm name {arm.name!r} is used twice")
+            seen.setdefault(arm.name, i)
+            here = ("arms", i)
+            if arm.visitors is not None and arm.conversions is not None and arm.conversions > arm.visitors:
+                self.add(here + ("conversions",), f"{arm.conversions} conversions exceed {arm.visitors} visitors")
+            if arm.orders is not None and arm.conversions is not None and arm.orders < arm.conversions:
+                self.add(here + ("orders",), f"{arm.orders} orders but {arm.conversions} converting visitors")
+            if arm.revenue and (arm.conversions == 0 or arm.orders == 0):
+                self.add(here + ("revenue",), "revenue without any conversion or order")
+            if arm.revenue_sum_of_squares is not None:
+                buyers = arm.conversions or arm.visitors
+                if arm.revenue is None or not buyers:
+                    self.add(here + ("revenue_sum_of_squares",), "needs revenue and conversions beside it")
+                elif arm.revenue_sum_of_squares < arm.revenue**2 / buyers * (1 - _TOLERANCE):
+                    # Cauchy-Schwarz: sum of squares over n buyers >= (sum)^2 / n
+                    self.add(
+                        here + ("revenue_sum_of_squares",),
+                        f"impossible: at least revenue^2/conversions = {arm.revenue**2 / buyers:.6g}",
+                    )
+
+    def dates_and_status(self) -> None:
+        r = self.r
+        if r.started and r.ended and r.ended < r.started:
+            self.add(("ended",), f"ends ({r.ended}) before it starts ({r.started})")
+        has_results = any(a.visitors or a.conversions or a.orders or a.revenue for a in r.arms)
+        if r.status == "planned":
+            if has_results:
+                self.add(("status",), "status is planned but arms have results; set status to running or finished")
+            if r.segments:
+                self.add(("segments",), "a planned test cannot have segment results yet")
+            if r.decision is not None:
+                self.add(("decision",), "a planned test has no decision yet", "warning")
+        if r.status in ("finished", "stopped-early"):
+            for i, arm in enumerate(r.arms):
+                for name in ("visitors", "conversions"):
+                    if getattr(arm, name) is None:
+                        self.add(("arms", i, name), f"a {r.status} test needs {name} for every arm")
+                if arm.visitors == 0:
+                    self.add(("arms", i, "visitors"), "arm has no visitors", "warning")
+            for name in ("started", "ended"):
+                if getattr(r, name) is None:
+                    self.add((name,), f"a {r.status} test needs its {name} date")
+            if r.decision is None:
+                self.add(("status",), "no decision recorded; add decision: outcome", "warning")
+            if not r.learnings:
+                self.add(("status",), "no learnings recorded", "warning")
+        if r.status == "running" and r.decision is not None:
+            self.add(("decision",), "a running test has a decision; set status to finished", "warning")
+
+    def plan(self) -> None:
+        plan = self.r.plan
+        if plan is None:
+            if self.r.status != "planned":
+                self.add(("status",), "no plan recorded; sample size cannot be judged", "warning")
+            return
+        names = {a.name for a in self.r.arms}
+        if plan.split is not None:
+            for arm, weight in plan.split.items():
+                if arm not in names:
+                    self.add(("plan", "split", arm), f"{arm!r} is not an arm of this test")
+                if weight <= 0:
+                    self.add(("plan", "split", arm), "a traffic share must be > 0")
+            for arm in sorted(names - set(plan.split)):
+                self.add(("plan", "split"), f"arm {arm!r} has no planned share")
+        for i, dim in enumerate(plan.segments):
+            if self.r.status in ("finished", "stopped-early") and dim not in self.r.segments:
+                self.add(("plan", "segments", i), f"pre-registered dimension {dim!r} has no results", "warning")
+
+    def segments(self) -> None:
+        arms = {a.name: a for a in self.r.arms}
+        for dim, by_value in self.r.segments.items():
+            totals: dict[str, dict[str, float]] = defaultdict(lambda: defaultdict(float))
+            for value, by_arm in by_value.items():
+                for arm_name, counts in by_arm.items():
+                    here = ("segments", dim, value, arm_name)
+                    if arm_name not in arms:
+                        self.add(here, f"{arm_name!r} is not an arm of this test (arms: {', '.join(arms)})")
+                        continue
+                    if counts.conversions > counts.visitors:
+                        self.add(here + ("conversions",), f"{counts.conversions} exceed {counts.visitors} visitors")
+                    totals[arm_name]["visitors"] += counts.visitors
+                    totals[arm_name]["conversions"] += counts.conversions
+                    totals[arm_name]["revenue"] += counts.revenue or 0.0
+            for arm_name, sums in totals.items():
+                arm = arms[arm_name]
+                for name, total in sums.items():
+                    limit = getattr(arm, name)
+                    if limit is not None and total > limit * (1 + _TOLERANCE) + 1e-9:
+                        self.add(
+                            ("segments", dim),
+                            f"{name} of arm {arm_name!r} add up to {total:g} across {dim!r} segments, "
+                            f"more than the arm's {limit:g}",
+                        )
+
+    def decision(self) -> None:
+        d = self.r.decision
+        if d is None:
+            return
+        names = {a.name: a for a in self.r.arms}
+        if d.arm is not None and d.arm not in names:
+            self.add(("decision", "arm"), f"{d.arm!r} is not an arm of this test (arms: {', '.join(names)})")
+            return
+        if d.outcome == "ship":
+            if d.arm is None:
+                self.add(("decision", "arm"), "outcome ship needs the arm that was shipped")
+            elif names[d.arm].control:
+                self.add(("decision", "arm"), "shipping the control is outcome keep-control")
+        if d.outcome == "keep-control" and d.arm is not None and not names[d.arm].control:
+            self.add(("decision", "arm"), f"outcome keep-control but arm {d.arm!r} is not the control")
+
+    def orders_file(self) -> None:
+        name = self.r.orders_file
+        if name is None:
+            return
+        target = orders_path(self.path, name)
+        if target is None:
+            self.add(("orders_file",), "must be a file name next to the record (no '..', no absolute path)")
+            return
+        if not target.is_file():
+            self.add(("orders_file",), f"{target} not found")
+            return
+        orders, problems = read_orders(target, {a.name for a in self.r.arms})
+        self.problems.extend(problems)
+        if orders is None:
+            return
+        for i, arm in enumerate(self.r.arms):
+            values = orders.values[arm.name]
+            if arm.orders is not None and orders.id_column == "order_id" and len(values) != arm.orders:
+                self.add(("arms", i, "orders"), f"{arm.orders} orders, but {len(values)} in {name}", "warning")
+            if arm.revenue is not None and abs(sum(values) - arm.revenue) > max(0.01 * arm.revenue, 0.01):
+                self.add(("arms", i, "revenue"), f"differs from the {sum(values):.2f} summed in {name}", "warning")
+
+    def links(self) -> None:
+        for i, link in enumerate(self.r.links):
+            if not link.url.lower().startswith(("http://", "https://")):
+                self.add(("links", i, "url"), "only http(s) links are published", "warning")
+
+
+# --- the archive ----------------------------------------------------------------------------------------
+
+LineOf = Callable[[str, Sequence[Hashable]], int]
+
+
+def archive_problems(summaries: Iterable[Summary], line_of: LineOf) -> list[Problem]:
+    """Checks across records. ``line_of(path, loc)`` gives the line of a field in a file."""
+    items = list(summaries)
+    problems: list[Problem] = []
+    by_id: dict[str, list[Summary]] = defaultdict(list)
+    for s in items:
+        by_id[s.id].append(s)
+    for same in by_id.values():
+        for s in same[1:]:
+            problems.append(Problem(s.path, line_of(s.path, ("id",)), "id", f"id also used by {same[0].path}"))
+    for s in items:
+        if s.iterates_on is not None and s.iterates_on != s.id and s.iterates_on not in by_id:
+            near = difflib.get_close_matches(s.iterates_on, list(by_id), n=1)
+            hint = f"; did you mean {near[0]!r}?" if near else ""
+            problems.append(
+                Problem(s.path, line_of(s.path, ("iterates_on",)), "iterates_on", f"no record {s.iterates_on!r}{hint}")
+            )
+    for kind in ("themes", "tags", "page_area"):
+        spellings: dict[str, dict[str, Summary]] = defaultdict(dict)
+        for s in items:
+            values = (s.page_area,) if kind == "page_area" else getattr(s, kind)
+            for value in values:
+                spellings[canonical_label(value)].setdefault(value, s)
+        for canon, seen in spellings.items():
+            if len(seen) < 2:
+                continue
+            first, *others = sorted(seen, key=lambda v: (v != canon, v))
+            for value in others:
+                s = seen[value]
+                values = (s.page_area,) if kind == "page_area" else getattr(s, kind)
+                loc: tuple[Hashable, ...] = (kind,) if kind == "page_area" else (kind, values.index(value))
+                problems.append(
+                    Problem(
+                        s.path,
+                        line_of(s.path, loc),
+                        dotted(loc),
+                        f"{value!r} is spelled {first!r} in {seen[first].path}; use {canon!r} everywhere",
+                    )
+                )
+    return problems
+
+
+def check_archive(records_dir: Path, progress: Callable[[int], None] | None = None) -> CheckReport:
+    """Check every record of a folder. Never writes."""
+    report = CheckReport()
+    paths = record_files(records_dir)
+    report.files = len(paths)
+    for path in paths:
+        loaded, problems = load_record(path)
+        report.problems.extend(problems)
+        if loaded is not None:
+            report.records.append(loaded)
+        if progress is not None:
+            progress(1)
+    docs = {lr.path: lr.doc for lr in report.records}
+    report.problems.extend(archive_problems((lr.summary for lr in report.records), lambda p, loc: docs[p].line_of(loc)))
+    report.problems.sort()
+    return report
