@@ -14,11 +14,11 @@ import re
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
-from sqlalchemy import Engine, and_, func, or_, select, text
+from sqlalchemy import Engine, and_, func, literal_column, or_, select, text
 from sqlalchemy.sql import ColumnElement
 
 from .database import search_document_sql
-from .record import Record
+from .record import Record, record_from_json
 from .tables import ArmRow, RecordRow, SegmentRow, TagRow, ThemeRow
 
 if TYPE_CHECKING:
@@ -95,9 +95,9 @@ def _text_matches(engine: Engine, words: str) -> Any:
         match = " ".join(f'"{t}"' for t in terms)
         return text("SELECT record_id FROM record_search WHERE record_search MATCH :q").bindparams(q=match)
     if engine.dialect.name == "postgresql":
-        document = text(f"to_tsvector('english', {search_document_sql()})")
+        document = func.to_tsvector("english", literal_column(search_document_sql()))
         query = func.plainto_tsquery("english", " ".join(terms))
-        return select(RecordRow.id).where(document.op("@@")(query))  # type: ignore[attr-defined]
+        return select(RecordRow.id).where(document.bool_op("@@")(query))
     like = [
         or_(*(col.ilike(f"%{t}%") for col in (RecordRow.title, RecordRow.hypothesis, RecordRow.learnings_text)))
         for t in terms
@@ -111,7 +111,7 @@ def get_record(engine: Engine, record_id: str) -> Record:
         body = conn.execute(select(RecordRow.body).where(RecordRow.id == record_id)).scalar_one_or_none()
     if body is None:
         raise NotIndexed(f"no test {record_id!r} in the index; check the id or run `archive index`")
-    return Record.model_validate_json(body)
+    return record_from_json(body)
 
 
 def index_size(engine: Engine) -> int:

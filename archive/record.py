@@ -9,6 +9,7 @@ the docs and the JSON Schema are generated from them.
 from __future__ import annotations
 
 import datetime as dt
+import json
 import re
 from typing import Any, Literal, get_args
 
@@ -19,7 +20,7 @@ from sqlmodel import Field, SQLModel
 SLUG = r"^[a-z0-9]+(?:-[a-z0-9]+)*$"
 _SLUG_RE = re.compile(SLUG)
 
-_STRICT = ConfigDict(extra="forbid", allow_inf_nan=False)  # strictness is asked for when validating YAML
+_STRICT = ConfigDict(extra="forbid", strict=True, allow_inf_nan=False)
 
 
 def is_slug(text: str) -> bool:
@@ -183,6 +184,15 @@ class Record(RecordCore):
             if candidate.name == name:
                 return candidate
         raise KeyError(name)
+
+
+def record_from_json(body: str) -> Record:
+    """Rebuild a record from ``Record.model_dump_json()`` output (strict validation wants real dates back)."""
+    data = json.loads(body)
+    for holder, key in ((data, "started"), (data, "ended"), (data.get("decision") or {}, "decided")):
+        if isinstance(holder.get(key), str):
+            holder[key] = dt.date.fromisoformat(holder[key])
+    return Record.model_validate(data)
 
 
 def record_schema() -> dict[str, Any]:

@@ -80,7 +80,7 @@ def load_record(path: Path, raw: bytes | None = None) -> tuple[LoadedRecord | No
     except YamlProblem as exc:
         return None, exc.problems
     try:
-        record = Record.model_validate(doc.data, strict=True)
+        record = Record.model_validate(doc.data)
     except ValidationError as exc:
         return None, [_from_pydantic(doc, err) for err in exc.errors(include_url=False)]
     problems = _RecordChecks(path, doc, record).run()
