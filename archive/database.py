@@ -10,11 +10,10 @@ from __future__ import annotations
 import os
 from pathlib import Path
 
-from sqlalchemy import Engine, create_engine, event, text
+from sqlalchemy import Engine, Table, create_engine, event, text
 from sqlmodel import SQLModel
 
-from . import tables
-from .tables import SCHEMA_VERSION, MetaRow
+from .tables import ALL_TABLES, META, SCHEMA_VERSION, MetaRow
 
 ENV_VAR = "ARCHIVE_DB"
 DEFAULT_DIR = ".archive"
@@ -80,7 +79,7 @@ def prepare(engine: Engine) -> bool:
         found = conn.execute(text("SELECT value FROM index_meta WHERE key = 'schema_version'")).first()
         if found is None:
             conn.execute(
-                MetaRow.__table__.insert(),  # type: ignore[attr-defined]
+                META.insert(),
                 [{"key": "schema_version", "value": str(SCHEMA_VERSION)}],
             )
     return fresh
@@ -91,8 +90,8 @@ def search_document_sql() -> str:
     return " || ' ' || ".join(f"coalesce({c}, '')" for c in SEARCH_COLUMNS)
 
 
-def _tables() -> list:  # type: ignore[type-arg]
-    return [t.__table__ for t in (tables.RecordRow, *tables.CHILD_TABLES, MetaRow)]  # type: ignore[attr-defined]
+def _tables() -> list[Table]:
+    return list(ALL_TABLES)
 
 
 def _drop(conn) -> None:  # type: ignore[no-untyped-def]

@@ -20,8 +20,8 @@ from sqlalchemy import Engine, delete, select, text
 from .database import prepare
 from .orders import orders_path
 from .problems import ArchiveInvalid, Problem, errors
-from .record import Record
-from .tables import CHILD_TABLES, ArmRow, RecordRow, SegmentRow, TagRow, ThemeRow
+from .record import Record, RecordCore
+from .tables import ARM, CHILD_TABLES, RECORD, SEGMENT, TAG, THEME
 from .validate import LoadedRecord, Summary, archive_problems, load_record, record_files
 from .yamlsource import YamlProblem, read_yaml
 
@@ -78,16 +78,19 @@ def index_archive(records_dir: Path, engine: Engine, progress: Callable[[int], N
             progress(0)
     problems: list[Problem] = []
     loaded: list[LoadedRecord] = []
+    failed: list[str] = []
     for path, raw in changed:
         record, found = load_record(path, raw)
         problems.extend(found)
         if record is not None:
             loaded.append(record)
+        else:
+            failed.append(path.stem)
         if progress is not None:
             progress(1)
     summaries = [lr.summary for lr in loaded]
     summaries += _known_summaries(engine, records_dir, unchanged_paths)
-    problems += archive_problems(summaries, _LineFinder(records_dir, loaded))
+    problems += archive_problems(summaries, _LineFinder(records_dir, loaded), failed)
     if errors(problems):
         raise ArchiveInvalid(problems)
     report.warnings = sorted(p for p in problems if p.severity == "warning")
@@ -110,7 +113,7 @@ def index_archive(records_dir: Path, engine: Engine, progress: Callable[[int], N
 
 def _known_records(engine: Engine) -> dict[str, _Known]:
     with engine.connect() as conn:
-        rows = conn.execute(select(RecordRow.path, RecordRow.id, RecordRow.content_hash, RecordRow.orders_file))
+        rows = conn.execute(select(RECORD.c.path, RECORD.c.id, RECORD.c.content_hash, RECORD.c.orders_file))
         return {path: _Known(id_, digest, orders) for path, id_, digest, orders in rows}
 
 
@@ -120,11 +123,11 @@ def _known_summaries(engine: Engine, records_dir: Path, paths: set[str]) -> list
     themes: dict[str, list[str]] = defaultdict(list)
     tags: dict[str, list[str]] = defaultdict(list)
     with engine.connect() as conn:
-        for record_id, theme in conn.execute(select(ThemeRow.record_id, ThemeRow.theme)):
+        for record_id, theme in conn.execute(select(THEME.c.record_id, THEME.c.theme)):
             themes[record_id].append(theme)
-        for record_id, tag in conn.execute(select(TagRow.record_id, TagRow.tag)):
+        for record_id, tag in conn.execute(select(TAG.c.record_id, TAG.c.tag)):
             tags[record_id].append(tag)
-        rows = conn.execute(select(RecordRow.path, RecordRow.id, RecordRow.iterates_on, RecordRow.page_area))
+        rows = conn.execute(select(RECORD.c.path, RECORD.c.id, RECORD.c.iterates_on, RECORD.c.page_area))
         out = []
         for path, id_, iterates_on, page_area in rows:
             if path in paths:
@@ -155,8 +158,8 @@ def _delete(conn: Any, ids: list[str]) -> None:
     for start in range(0, len(ids), _CHUNK):
         chunk = ids[start : start + _CHUNK]
         for table in CHILD_TABLES:
-            conn.execute(delete(table).where(table.record_id.in_(chunk)))  # type: ignore[attr-defined]
-        conn.execute(delete(RecordRow).where(RecordRow.id.in_(chunk)))  # type: ignore[attr-defined]
+            conn.execute(delete(table).where(table.c.record_id.in_(chunk)))
+        conn.execute(delete(RECORD).where(RECORD.c.id.in_(chunk)))
         if sqlite:
             params = {f"p{i}": v for i, v in enumerate(chunk)}
             marks = ", ".join(f":p{i}" for i in range(len(chunk)))
@@ -191,14 +194,14 @@ def _insert(conn: Any, loaded: list[LoadedRecord], raw_by_name: dict[str, bytes]
             {"record_id": r.id, "title": r.title, "hypothesis": r.hypothesis, "learnings_text": "\n".join(r.learnings)}
         )
     for table, rows in (
-        (RecordRow, records),
-        (ArmRow, arms),
-        (ThemeRow, themes),
-        (TagRow, tags),
-        (SegmentRow, segments),
+        (RECORD, records),
+        (ARM, arms),
+        (THEME, themes),
+        (TAG, tags),
+        (SEGMENT, segments),
     ):
         if rows:
-            conn.execute(table.__table__.insert(), rows)  # type: ignore[attr-defined]
+            conn.execute(table.insert(), rows)
     if search and conn.dialect.name == "sqlite":
         conn.execute(
             text(
@@ -210,8 +213,7 @@ def _insert(conn: Any, loaded: list[LoadedRecord], raw_by_name: dict[str, bytes]
 
 
 def _record_row(r: Record, path: str, content_hash: str) -> dict[str, Any]:
-    core = {name: getattr(r, name) for name in RecordRow.model_fields if name in type(r).model_fields}
-    core.pop("orders_file", None)
+    core = {name: getattr(r, name) for name in RecordCore.model_fields}
     return {
         **core,
         "path": path,

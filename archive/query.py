@@ -19,7 +19,7 @@ from sqlalchemy.sql import ColumnElement
 
 from .database import search_document_sql
 from .record import Record, record_from_json
-from .tables import ArmRow, RecordRow, SegmentRow, TagRow, ThemeRow
+from .tables import ARM, RECORD, SEGMENT, TAG, THEME
 
 if TYPE_CHECKING:
     import pandas as pd
@@ -47,12 +47,12 @@ class Filters:
 def find_tests(engine: Engine, filters: Filters | None = None) -> list[dict[str, Any]]:
     """Tests matching every given filter, as plain dicts with the keys of ``LIST_COLUMNS``."""
     f = filters or Filters()
-    R = RecordRow
+    R = RECORD.c
     conditions: list[ColumnElement[bool]] = []
     if f.theme:
-        conditions.append(R.id.in_(select(ThemeRow.record_id).where(ThemeRow.theme == f.theme)))  # type: ignore[attr-defined]
+        conditions.append(R.id.in_(select(THEME.c.record_id).where(THEME.c.theme == f.theme)))
     if f.tag:
-        conditions.append(R.id.in_(select(TagRow.record_id).where(TagRow.tag == f.tag)))  # type: ignore[attr-defined]
+        conditions.append(R.id.in_(select(TAG.c.record_id).where(TAG.c.tag == f.tag)))
     for name in ("page_area", "status", "outcome", "owner"):
         value = getattr(f, name)
         if value:
@@ -60,13 +60,13 @@ def find_tests(engine: Engine, filters: Filters | None = None) -> list[dict[str,
     if f.since:
         conditions.append(func.coalesce(R.ended, R.started) >= f.since)
     if f.until:
-        conditions.append(R.started <= f.until)  # type: ignore[operator]
+        conditions.append(R.started <= f.until)
     if f.text:
-        conditions.append(R.id.in_(_text_matches(engine, f.text)))  # type: ignore[attr-defined]
+        conditions.append(R.id.in_(_text_matches(engine, f.text)))
     query = select(
         R.id, R.title, R.status, R.page_area, R.themes_text, R.started, R.ended, R.owner, R.outcome, R.arm_count
-    ).where(and_(*conditions))
-    query = query.order_by(R.started, R.id)  # type: ignore[arg-type]
+    ).where(*conditions)
+    query = query.order_by(R.started, R.id)
     with engine.connect() as conn:
         rows = conn.execute(query).all()
     return [
@@ -97,18 +97,18 @@ def _text_matches(engine: Engine, words: str) -> Any:
     if engine.dialect.name == "postgresql":
         document = func.to_tsvector("english", literal_column(search_document_sql()))
         query = func.plainto_tsquery("english", " ".join(terms))
-        return select(RecordRow.id).where(document.bool_op("@@")(query))
+        return select(RECORD.c.id).where(document.bool_op("@@")(query))
     like = [
-        or_(*(col.ilike(f"%{t}%") for col in (RecordRow.title, RecordRow.hypothesis, RecordRow.learnings_text)))
+        or_(*(col.ilike(f"%{t}%") for col in (RECORD.c.title, RECORD.c.hypothesis, RECORD.c.learnings_text)))
         for t in terms
-    ]  # type: ignore[attr-defined]
-    return select(RecordRow.id).where(and_(*like))
+    ]
+    return select(RECORD.c.id).where(and_(*like))
 
 
 def get_record(engine: Engine, record_id: str) -> Record:
     """The validated record with this id, rebuilt from the index."""
     with engine.connect() as conn:
-        body = conn.execute(select(RecordRow.body).where(RecordRow.id == record_id)).scalar_one_or_none()
+        body = conn.execute(select(RECORD.c.body).where(RECORD.c.id == record_id)).scalar_one_or_none()
     if body is None:
         raise NotIndexed(f"no test {record_id!r} in the index; check the id or run `archive index`")
     return record_from_json(body)
@@ -116,7 +116,7 @@ def get_record(engine: Engine, record_id: str) -> Record:
 
 def index_size(engine: Engine) -> int:
     with engine.connect() as conn:
-        return int(conn.execute(select(func.count()).select_from(RecordRow)).scalar_one())
+        return int(conn.execute(select(func.count()).select_from(RECORD)).scalar_one())
 
 
 # --- DataFrames -----------------------------------------------------------------------------------------
@@ -134,10 +134,9 @@ def arms_frame(engine: Engine, filters: Filters | None = None) -> pd.DataFrame:
     import pandas as pd
 
     ids = [t["id"] for t in find_tests(engine, filters)]
-    columns = [c.name for c in ArmRow.__table__.columns]  # type: ignore[attr-defined]
+    columns = [c.name for c in ARM.columns]
     with engine.connect() as conn:
-        table = ArmRow.__table__  # type: ignore[attr-defined]
-        rows = conn.execute(select(table).order_by(table.c.record_id, table.c.position)).mappings().all()
+        rows = conn.execute(select(ARM).order_by(ARM.c.record_id, ARM.c.position)).mappings().all()
     frame = pd.DataFrame([dict(r) for r in rows], columns=columns)
     frame = frame[frame["record_id"].isin(ids)].reset_index(drop=True)
     frame["conversion_rate"] = frame["conversions"] / frame["visitors"].where(frame["visitors"] > 0)
@@ -149,9 +148,9 @@ def segments_frame(engine: Engine, filters: Filters | None = None) -> pd.DataFra
     import pandas as pd
 
     ids = [t["id"] for t in find_tests(engine, filters)]
-    columns = [c.name for c in SegmentRow.__table__.columns]  # type: ignore[attr-defined]
+    columns = [c.name for c in SEGMENT.columns]
     with engine.connect() as conn:
-        rows = conn.execute(select(SegmentRow.__table__)).mappings().all()  # type: ignore[attr-defined]
+        rows = conn.execute(select(SEGMENT)).mappings().all()
     frame = pd.DataFrame([dict(r) for r in rows], columns=columns)
     frame = frame[frame["record_id"].isin(ids)]
     return frame.sort_values(["record_id", "dimension", "value", "arm"]).reset_index(drop=True)

@@ -22,6 +22,7 @@ from .record import STATUSES, Arm, Record, canonical_label, is_slug
 from .yamlsource import parse_yaml
 
 RESULT_COLUMNS = ("arm", "visitors", "conversions", "revenue")
+PLACEHOLDER_HYPOTHESIS = "Because we saw <evidence>, we believe <change> for <visitors> will raise conversion."
 _OPTIONAL = {"orders": int, "revenue_sum_of_squares": float, "description": str}
 
 
@@ -137,7 +138,7 @@ def render(draft: Draft) -> str:
         *[f"  - {canonical_label(t)}" for t in draft.themes],
         "tags: []",
         "hypothesis: >-",
-        f"  {draft.hypothesis or 'Because we saw <evidence>, we believe <change> for <visitors> will raise conversion.'}",
+        f"  {draft.hypothesis or PLACEHOLDER_HYPOTHESIS}",
         "",
         "plan:  # what was fixed before launch",
         "  baseline_rate:      # control's expected conversion rate, e.g. 0.031",

@@ -7,7 +7,7 @@ it without reading the YAML again.
 
 from __future__ import annotations
 
-from sqlalchemy import Column, Index, Text
+from sqlalchemy import Column, Index, Table, Text
 from sqlmodel import Field, SQLModel
 
 from .record import ArmCore, RecordCore
@@ -72,6 +72,18 @@ class MetaRow(SQLModel, table=True):
     value: str
 
 
-Index("ix_record_started", RecordRow.__table__.c.started)  # type: ignore[attr-defined]
+def table_of(model: type[SQLModel]) -> Table:
+    """The SQLAlchemy table behind a table model (typed, for Core queries)."""
+    return model.__table__  # type: ignore[attr-defined, no-any-return]
 
-CHILD_TABLES = (ArmRow, ThemeRow, TagRow, SegmentRow)
+
+RECORD = table_of(RecordRow)
+ARM = table_of(ArmRow)
+THEME = table_of(ThemeRow)
+TAG = table_of(TagRow)
+SEGMENT = table_of(SegmentRow)
+META = table_of(MetaRow)
+CHILD_TABLES = (ARM, THEME, TAG, SEGMENT)
+ALL_TABLES = (RECORD, *CHILD_TABLES, META)
+
+Index("ix_record_started", RECORD.c.started)

@@ -338,9 +338,14 @@ class _RecordChecks:
 LineOf = Callable[[str, Sequence[Hashable]], int]
 
 
-def archive_problems(summaries: Iterable[Summary], line_of: LineOf) -> list[Problem]:
-    """Checks across records. ``line_of(path, loc)`` gives the line of a field in a file."""
+def archive_problems(summaries: Iterable[Summary], line_of: LineOf, unreadable: Iterable[str] = ()) -> list[Problem]:
+    """Checks across records. ``line_of(path, loc)`` gives the line of a field in a file.
+
+    ``unreadable`` names the ids (file stems) of records that exist but failed their own checks: pointing at
+    them is not a second error.
+    """
     items = list(summaries)
+    exists = set(unreadable)
     problems: list[Problem] = []
     by_id: dict[str, list[Summary]] = defaultdict(list)
     for s in items:
@@ -349,11 +354,12 @@ def archive_problems(summaries: Iterable[Summary], line_of: LineOf) -> list[Prob
         for s in same[1:]:
             problems.append(Problem(s.path, line_of(s.path, ("id",)), "id", f"id also used by {same[0].path}"))
     for s in items:
-        if s.iterates_on is not None and s.iterates_on != s.id and s.iterates_on not in by_id:
-            near = difflib.get_close_matches(s.iterates_on, list(by_id), n=1)
+        target = s.iterates_on
+        if target is not None and target != s.id and target not in by_id and target not in exists:
+            near = difflib.get_close_matches(target, list(by_id), n=1)
             hint = f"; did you mean {near[0]!r}?" if near else ""
             problems.append(
-                Problem(s.path, line_of(s.path, ("iterates_on",)), "iterates_on", f"no record {s.iterates_on!r}{hint}")
+                Problem(s.path, line_of(s.path, ("iterates_on",)), "iterates_on", f"no record {target!r}{hint}")
             )
     for kind in ("themes", "tags", "page_area"):
         spellings: dict[str, dict[str, Summary]] = defaultdict(dict)
@@ -385,14 +391,18 @@ def check_archive(records_dir: Path, progress: Callable[[int], None] | None = No
     report = CheckReport()
     paths = record_files(records_dir)
     report.files = len(paths)
+    failed: list[str] = []
     for path in paths:
         loaded, problems = load_record(path)
         report.problems.extend(problems)
         if loaded is not None:
             report.records.append(loaded)
+        else:
+            failed.append(path.stem)
         if progress is not None:
             progress(1)
     docs = {lr.path: lr.doc for lr in report.records}
-    report.problems.extend(archive_problems((lr.summary for lr in report.records), lambda p, loc: docs[p].line_of(loc)))
+    summaries = (lr.summary for lr in report.records)
+    report.problems.extend(archive_problems(summaries, lambda p, loc: docs[p].line_of(loc), failed))
     report.problems.sort()
     return report

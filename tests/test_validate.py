@@ -166,7 +166,11 @@ def test_unreadable_file(records_dir: Path, name: str, raw: bytes, fragment: str
 
 def test_every_problem_is_reported_and_sorted(records_dir: Path) -> None:
     path = records_dir / "free-delivery-bar.yaml"
-    text = good_text().replace("conversions: 310\n", "conversions: 10310\n").replace("ended: 2024-03-31", "ended: 2024-02-01")
+    text = (
+        good_text()
+        .replace("conversions: 310\n", "conversions: 10310\n")
+        .replace("ended: 2024-03-31", "ended: 2024-02-01")
+    )
     path.write_text(text, encoding="utf-8")
     (records_dir / "empty.yaml").write_bytes(b"")
     problems = [p for p in _problems(records_dir) if p.severity == "error"]
@@ -213,7 +217,9 @@ def test_orders_file_checked(records_dir: Path) -> None:
 
 
 def test_segment_counts_beyond_segment_visitors(records_dir: Path) -> None:
-    text = good_text().replace("control: {visitors: 6000, conversions: 150", "control: {visitors: 100, conversions: 150")
+    text = good_text().replace(
+        "control: {visitors: 6000, conversions: 150", "control: {visitors: 100, conversions: 150"
+    )
     (records_dir / "free-delivery-bar.yaml").write_text(text)
     assert any("exceed 100 visitors" in p.message for p in _problems(records_dir))
 

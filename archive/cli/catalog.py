@@ -165,8 +165,8 @@ def _print_record(r: Record) -> None:
     if r.segments:
         out.print("Segments: " + ", ".join(f"{d} ({len(v)} values)" for d, v in r.segments.items()), markup=False)
     if r.decision:
-        arm = f" {r.decision.arm}" if r.decision.arm else ""
-        out.print(f"\nDecision: {r.decision.outcome}{arm}. {r.decision.rationale}", markup=False)
+        chosen = f" {r.decision.arm}" if r.decision.arm else ""
+        out.print(f"\nDecision: {r.decision.outcome}{chosen}. {r.decision.rationale}", markup=False)
     if r.learnings:
         out.print("\nLearnings:")
         for item in r.learnings:

@@ -9,7 +9,7 @@ import json
 import os
 import sys
 from collections.abc import Iterator, Sequence
-from enum import Enum
+from enum import StrEnum
 from pathlib import Path
 from typing import Annotated, Any
 
@@ -37,7 +37,7 @@ DbOption = Annotated[
 ]
 
 
-class Format(str, Enum):
+class Format(StrEnum):
     table = "table"
     json = "json"
     csv = "csv"
