@@ -1,0 +1,155 @@
+"""Revenue per visitor: Welch and delta-method intervals from sums of squares, and, with order-level data,
+a Poisson bootstrap, a capped estimate and a check of how much a few large orders drive the difference."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import stats
+
+
+@dataclass(frozen=True)
+class MeanSummary:
+    """Per-visitor revenue of one arm, from its count, sum and sum of squares."""
+
+    n: int
+    total: float
+    sum_of_squares: float
+
+    @property
+    def mean(self) -> float:
+        return self.total / self.n
+
+    @property
+    def variance(self) -> float:
+        if self.n < 2:
+            raise ValueError("a variance needs at least two visitors")
+        return max(0.0, (self.sum_of_squares - self.n * self.mean**2) / (self.n - 1))
+
+    @classmethod
+    def of(cls, values: np.ndarray, n: int | None = None) -> MeanSummary:
+        """From per-visitor values; ``n`` larger than ``len(values)`` adds visitors with 0 revenue."""
+        count = len(values) if n is None else n
+        return cls(count, float(values.sum()), float(np.square(values).sum()))
+
+
+@dataclass(frozen=True)
+class MeanComparison:
+    difference: float
+    difference_low: float
+    difference_high: float
+    df: float
+    p_value: float
+    lift: float | None
+    lift_low: float | None
+    lift_high: float | None
+    confidence: float
+
+
+def welch(treatment: MeanSummary, control: MeanSummary, confidence: float = 0.95) -> MeanComparison:
+    """Welch's t interval of the difference of means and a delta-method interval of the relative difference
+    (Var(m_t)/m_c^2 + m_t^2 Var(m_c)/m_c^4, independent arms)."""
+    v_t = treatment.variance / treatment.n
+    v_c = control.variance / control.n
+    se = math.sqrt(v_t + v_c)
+    diff = treatment.mean - control.mean
+    if se == 0:
+        df, p, half = math.inf, (1.0 if diff == 0 else 0.0), 0.0
+    else:
+        df = (v_t + v_c) ** 2 / (v_t**2 / (treatment.n - 1) + v_c**2 / (control.n - 1))
+        t_crit = float(stats.t.ppf(0.5 + confidence / 2, df))
+        p = float(2 * stats.t.sf(abs(diff / se), df))
+        half = t_crit * se
+    lift = low = high = None
+    if control.mean > 0:
+        z = float(stats.norm.ppf(0.5 + confidence / 2))
+        lift = treatment.mean / control.mean - 1
+        se_lift = math.sqrt(v_t / control.mean**2 + treatment.mean**2 * v_c / control.mean**4)
+        low, high = lift - z * se_lift, lift + z * se_lift
+    return MeanComparison(diff, diff - half, diff + half, df, p, lift, low, high, confidence)
+
+
+def per_visitor_values(order_values: np.ndarray, visitor_ids: np.ndarray | None) -> np.ndarray:
+    """Revenue of each buying visitor: orders summed by visitor id, or each order on its own without ids."""
+    if visitor_ids is None:
+        return np.asarray(order_values, dtype=float)
+    _, inverse = np.unique(visitor_ids, return_inverse=True)
+    return np.bincount(inverse, weights=order_values).astype(float)
+
+
+@dataclass(frozen=True)
+class BootstrapInterval:
+    difference_low: float
+    difference_high: float
+    lift_low: float | None
+    lift_high: float | None
+    replicates: int
+    seed: int
+
+
+def poisson_bootstrap(
+    buyers_t: np.ndarray,
+    n_t: int,
+    buyers_c: np.ndarray,
+    n_c: int,
+    replicates: int = 1000,
+    confidence: float = 0.95,
+    seed: int = 0,
+) -> BootstrapInterval:
+    """Percentile interval of the RPV difference and lift. Each buyer gets a Poisson(1) weight; the visitors
+    without revenue together get a Poisson(n - buyers) weight, which is the sum of their Poisson(1) weights."""
+    rng = np.random.default_rng(seed)
+
+    def replicate_means(values: np.ndarray, n: int) -> np.ndarray:
+        totals = np.empty(replicates)
+        counts = np.empty(replicates)
+        chunk = max(1, 4_000_000 // max(1, len(values)))
+        for start in range(0, replicates, chunk):
+            stop = min(replicates, start + chunk)
+            weights = rng.poisson(1.0, size=(stop - start, len(values))).astype(np.float64)
+            totals[start:stop] = weights @ values
+            counts[start:stop] = weights.sum(axis=1)
+        counts += rng.poisson(max(0, n - len(values)), size=replicates)
+        return totals / np.maximum(counts, 1)
+
+    m_t = replicate_means(np.asarray(buyers_t, float), n_t)
+    m_c = replicate_means(np.asarray(buyers_c, float), n_c)
+    tail = (1 - confidence) / 2 * 100
+    d_low, d_high = np.percentile(m_t - m_c, [tail, 100 - tail])
+    lift_low = lift_high = None
+    if np.all(m_c > 0):
+        lift_low, lift_high = (float(v) for v in np.percentile(m_t / m_c - 1, [tail, 100 - tail]))
+    return BootstrapInterval(float(d_low), float(d_high), lift_low, lift_high, replicates, seed)
+
+
+@dataclass(frozen=True)
+class ExtremeOrders:
+    """How much the largest orders drive the RPV difference between a treatment and the control."""
+
+    cap: float
+    capped_difference: float
+    top_share_of_difference: float | None
+    difference_without_top: float
+    sign_survives: bool
+
+
+def extreme_order_check(
+    orders_t: np.ndarray, n_t: int, orders_c: np.ndarray, n_c: int, cap: float, top_fraction: float = 0.01
+) -> ExtremeOrders:
+    """``cap``: order value at the capping percentile of all arms' orders. The top-orders share compares the
+    difference with and without the orders above that cap; the sign check drops each arm's own largest
+    ``top_fraction`` of orders and asks whether the difference keeps its sign."""
+    diff = orders_t.sum() / n_t - orders_c.sum() / n_c
+    capped = np.minimum(orders_t, cap).sum() / n_t - np.minimum(orders_c, cap).sum() / n_c
+    without_big = orders_t[orders_t <= cap].sum() / n_t - orders_c[orders_c <= cap].sum() / n_c
+    share = None if diff == 0 else float((diff - without_big) / diff)
+
+    def drop_top(values: np.ndarray) -> np.ndarray:
+        k = int(math.ceil(top_fraction * len(values)))
+        return np.sort(values)[: len(values) - k] if k else values
+
+    trimmed = drop_top(orders_t).sum() / n_t - drop_top(orders_c).sum() / n_c
+    survives = bool(np.sign(trimmed) == np.sign(diff)) if diff != 0 else trimmed == 0
+    return ExtremeOrders(float(cap), float(capped), share, float(trimmed), survives)

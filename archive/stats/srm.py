@@ -1,0 +1,43 @@
+"""Sample ratio mismatch: does the observed split of visitors fit the planned one? (chi-square goodness of fit)"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import stats
+
+
+@dataclass(frozen=True)
+class SampleRatio:
+    chi_square: float
+    df: int
+    p_value: float
+    expected: tuple[float, ...]
+    observed_shares: tuple[float, ...]
+    planned_shares: tuple[float, ...]
+
+
+def sample_ratio_test(visitors: Sequence[int], planned_weights: Sequence[float]) -> SampleRatio:
+    """Pearson's chi-square of the visitor counts against the planned shares (weights are normalised)."""
+    observed = np.asarray(visitors, dtype=float)
+    weights = np.asarray(planned_weights, dtype=float)
+    if len(observed) != len(weights) or len(observed) < 2:
+        raise ValueError("needs one planned weight per arm and at least two arms")
+    if np.any(weights <= 0) or np.any(observed < 0):
+        raise ValueError("weights must be > 0 and visitor counts >= 0")
+    total = observed.sum()
+    if total <= 0:
+        raise ValueError("no visitors")
+    shares = weights / weights.sum()
+    expected = total * shares
+    result = stats.chisquare(observed, expected)
+    return SampleRatio(
+        float(result.statistic),
+        len(observed) - 1,
+        float(result.pvalue),
+        tuple(float(e) for e in expected),
+        tuple(float(o) for o in observed / total),
+        tuple(float(s) for s in shares),
+    )
