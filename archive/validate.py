@@ -19,7 +19,7 @@ from typing import Any
 
 from pydantic import BaseModel, ValidationError
 
-from .orders import orders_path, read_orders
+from .orders import Orders, orders_path, read_orders
 from .problems import Problem
 from .record import Record, canonical_label, is_slug
 from .yamlsource import YamlDocument, YamlProblem, dotted, parse_yaml
@@ -49,6 +49,7 @@ class LoadedRecord:
     path: str
     record: Record
     doc: YamlDocument
+    orders: Orders | None = None  # the record's orders file, read and checked
 
     @property
     def summary(self) -> Summary:
@@ -83,8 +84,9 @@ def load_record(path: Path, raw: bytes | None = None) -> tuple[LoadedRecord | No
         record = Record.model_validate(doc.data)
     except ValidationError as exc:
         return None, [_from_pydantic(doc, err) for err in exc.errors(include_url=False)]
-    problems = _RecordChecks(path, doc, record).run()
-    return LoadedRecord(where, record, doc), problems
+    checks = _RecordChecks(path, doc, record)
+    problems = checks.run()
+    return LoadedRecord(where, record, doc, checks.orders), problems
 
 
 def _from_pydantic(doc: YamlDocument, err: Any) -> Problem:
@@ -142,6 +144,7 @@ class _RecordChecks:
     def __init__(self, path: Path, doc: YamlDocument, record: Record):
         self.path, self.doc, self.r = path, doc, record
         self.problems: list[Problem] = []
+        self.orders: Orders | None = None
 
     def add(self, loc: Sequence[Hashable], message: str, severity: str = "error") -> None:
         self.problems.append(
@@ -320,6 +323,7 @@ class _RecordChecks:
         self.problems.extend(problems)
         if orders is None:
             return
+        self.orders = orders
         for i, arm in enumerate(self.r.arms):
             values = orders.values[arm.name]
             if arm.orders is not None and orders.id_column == "order_id" and len(values) != arm.orders:

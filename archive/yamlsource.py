@@ -15,6 +15,7 @@ The file is only read, never written.
 from __future__ import annotations
 
 import math
+import re
 from collections.abc import Hashable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -35,7 +36,65 @@ MAX_RECORD_BYTES = 1_000_000
 PathKey = tuple[Hashable, ...]
 
 _STR = "tag:yaml.org,2002:str"
+_INT = "tag:yaml.org,2002:int"
+_FLOAT = "tag:yaml.org,2002:float"
+_BOOL = "tag:yaml.org,2002:bool"
+_SEQ = "tag:yaml.org,2002:seq"
+_MAP = "tag:yaml.org,2002:map"
 _SAFE_TAGS = frozenset(yaml.SafeLoader.yaml_constructors) - {None}
+_PLAIN_FLOAT = re.compile(r"[0-9]+\.[0-9]+\Z")  # read by the safe constructor exactly as float() reads it
+_PLAIN_BOOLS = {"true": True, "false": False}
+
+
+class _ComposingLoader(_Loader):  # type: ignore[valid-type,misc]
+    """The safe loader with cheaper resolver hooks: the parser calls them for every node.
+
+    The safe loader has no path resolvers, so descending and ascending do nothing and a node's tag depends only
+    on its kind and text; the implicit resolvers are looked up once by first character. Tags come out the same.
+    """
+
+    _by_first: dict[str, tuple[tuple[str, re.Pattern[str]], ...]] = {
+        first: tuple(resolvers) + tuple(_Loader.yaml_implicit_resolvers.get(None, ()))
+        for first, resolvers in _Loader.yaml_implicit_resolvers.items()
+        if first is not None
+    }
+    _wildcard = tuple(_Loader.yaml_implicit_resolvers.get(None, ()))
+    _plain_tags: dict[str, str] = {}  # short plain scalars seen before (keys, words) -> tag
+
+    def descend_resolver(self, current_node: Any, current_index: Any) -> None:
+        pass
+
+    def ascend_resolver(self) -> None:
+        pass
+
+    def resolve(self, kind: Any, value: Any, implicit: Any) -> Any:
+        if kind is yaml.ScalarNode:
+            if implicit[0]:
+                tag = self._plain_tags.get(value)
+                if tag is not None:
+                    return tag
+                tag = _STR
+                for candidate, regexp in self._by_first.get(value[:1], self._wildcard):
+                    if regexp.match(value):
+                        tag = candidate
+                        break
+                if len(value) <= 24:
+                    if len(self._plain_tags) >= 20_000:
+                        self._plain_tags.clear()
+                    self._plain_tags[value] = tag
+                return tag
+            return _STR
+        if kind is yaml.SequenceNode:
+            return _SEQ
+        if kind is yaml.MappingNode:
+            return _MAP
+        return None
+
+
+#: the shortcuts above hold for the safe loader as PyYAML ships it; fall back to it if it was ever extended
+_Composer: type[yaml.SafeLoader] = (
+    _Loader if _Loader.yaml_path_resolvers or _Loader.DEFAULT_SCALAR_TAG != _STR else _ComposingLoader
+)
 
 
 @dataclass
@@ -94,7 +153,7 @@ def parse_yaml(path: str, raw: bytes) -> YamlDocument:
     if not text.strip():
         raise YamlProblem(Problem(path, 0, "", "file is empty; start from `archive new`"))
     try:
-        loader = _Loader(text)
+        loader = _Composer(text)
         try:
             root = loader.get_single_node()
         finally:
@@ -145,49 +204,77 @@ class _Builder:
         self.problems.append(Problem(self.doc.path, node.start_mark.line + 1, dotted(loc), message))
 
     def build(self, node: yaml.Node, loc: PathKey) -> Any:
-        if isinstance(node, yaml.ScalarNode):
+        # Scalar children are read in place rather than through a call to build: most nodes are scalars.
+        scalar_node = yaml.ScalarNode
+        if isinstance(node, scalar_node):
             return self._scalar(node, loc)
+        lines = self.doc.lines
         if isinstance(node, yaml.SequenceNode):
-            if node.tag != "tag:yaml.org,2002:seq":
+            if node.tag != _SEQ:
                 self._problem(node, loc, f"YAML tag {node.tag!r} is not allowed in a record")
                 return None
             items = []
             for i, child in enumerate(node.value):
-                self.doc.lines[loc + (i,)] = child.start_mark.line + 1
-                items.append(self.build(child, loc + (i,)))
+                here = loc + (i,)
+                lines[here] = child.start_mark.line + 1
+                if isinstance(child, scalar_node):
+                    items.append(child.value if child.tag == _STR else self._scalar(child, here))
+                else:
+                    items.append(self.build(child, here))
             return items
         if isinstance(node, yaml.MappingNode):
-            if node.tag != "tag:yaml.org,2002:map":
+            if node.tag != _MAP:
                 self._problem(node, loc, f"YAML tag {node.tag!r} is not allowed in a record")
                 return None
             out: dict[Any, Any] = {}
             for key_node, value_node in node.value:
-                if not isinstance(key_node, yaml.ScalarNode):
+                if not isinstance(key_node, scalar_node):
                     self._problem(key_node, loc, "a key must be a plain word, not a list or mapping")
                     continue
-                key = self._scalar(key_node, loc)
+                key = key_node.value if key_node.tag == _STR else self._scalar(key_node, loc)
                 if isinstance(key, str) and key == "<<":
                     self._problem(key_node, loc, "YAML merge keys (<<) are not supported in records; write fields out")
                     continue
+                here = loc + (key,)
                 if key in out:
-                    first = self.doc.lines.get(loc + (key,), 0)
-                    self._problem(key_node, loc + (key,), f"duplicate key (first given on line {first}); keep one")
+                    first = lines.get(here, 0)
+                    self._problem(key_node, here, f"duplicate key (first given on line {first}); keep one")
                     continue
-                self.doc.lines[loc + (key,)] = key_node.start_mark.line + 1
-                out[key] = self.build(value_node, loc + (key,))
+                lines[here] = key_node.start_mark.line + 1
+                if isinstance(value_node, scalar_node):
+                    out[key] = value_node.value if value_node.tag == _STR else self._scalar(value_node, here)
+                else:
+                    out[key] = self.build(value_node, here)
             return out
         raise TypeError(f"unexpected YAML node {node!r}")  # pragma: no cover - composer yields only these
 
     def _scalar(self, node: yaml.ScalarNode, loc: PathKey) -> Any:
-        if node.tag == _STR:
-            return node.value
-        if node.tag not in _SAFE_TAGS:
+        tag, text = node.tag, node.value
+        if tag == _STR:
+            return text
+        # Common plain forms, read as the safe constructor reads them; anything else takes the general way below.
+        if tag == _INT:
+            if len(text) <= 18 and text.isascii() and text.isdigit() and (text[0] != "0" or text == "0"):
+                return int(text)
+        elif tag == _FLOAT:
+            if _PLAIN_FLOAT.match(text):
+                number = float(text)
+                if math.isfinite(number):
+                    return number
+        elif tag == _BOOL:
+            flag = _PLAIN_BOOLS.get(text)
+            if flag is not None:
+                return flag
+        if tag not in _SAFE_TAGS:
             self._problem(node, loc, f"YAML tag {node.tag!r} is not allowed in a record; remove it")
             return None
         try:
             value = self.constructor.yaml_constructors[node.tag](self.constructor, node)
         except (yaml.YAMLError, ValueError) as exc:
             self._problem(node, loc, f"cannot read {node.value!r}: {exc}")
+            return None
+        except (KeyError, IndexError, AttributeError, TypeError):  # e.g. `!!bool maybe`, `!!int ""`, `!!timestamp x`
+            self._problem(node, loc, f"cannot read {node.value!r} as {tag.rsplit(':', 1)[-1]}")
             return None
         if isinstance(value, float) and not math.isfinite(value):
             self._problem(node, loc, f"{node.value!r} is not a finite number")

@@ -46,6 +46,8 @@ class Format(StrEnum):
 FormatOption = Annotated[Format, typer.Option("--format", "-f", help="table for people, json or csv for programs.")]
 
 out = Console(highlight=False, soft_wrap=True)
+if not out.is_terminal:  # piped or captured: wide tables rather than folded cells
+    out = Console(highlight=False, soft_wrap=True, width=200)
 err = Console(stderr=True, highlight=False, soft_wrap=True)
 
 

@@ -4,11 +4,11 @@ from __future__ import annotations
 
 import typer
 
-from . import catalog, records
+from . import analyze, catalog, records
 
 app = typer.Typer(
     name="archive",
-    help="A knowledge base of finished A/B tests: file, check, index and find them.",
+    help="A knowledge base of finished A/B tests: file, check, index, find and analyse them.",
     no_args_is_help=True,
     add_completion=False,
     pretty_exceptions_enable=False,
@@ -20,6 +20,7 @@ app.command("index")(catalog.index)
 app.command("list")(catalog.list_tests)
 app.command("search")(catalog.search)
 app.command("show")(catalog.show)
+app.command("analyze")(analyze.analyze)
 
 
 def main() -> None:

@@ -61,11 +61,12 @@ def compare_rates(x_t: int, n_t: int, x_c: int, n_c: int, confidence: float = 0.
     se_diff = math.sqrt(p_t * (1 - p_t) / n_t + p_c * (1 - p_c) / n_c)
     pooled = (x_t + x_c) / (n_t + n_c)
     se_pooled = math.sqrt(pooled * (1 - pooled) * (1 / n_t + 1 / n_c))
+    z: float | None = None
     if se_pooled > 0:
-        z: float | None = diff / se_pooled
+        z = diff / se_pooled
         p_value = float(2 * stats.norm.sf(abs(z)))
     else:  # nobody or everybody converted in both arms: the data carry no evidence of a difference
-        z, p_value = None, 1.0
+        p_value = 1.0
     if x_t == 0 and x_c == 0 or x_t == n_t and x_c == n_c:
         lift = low = high = log_rr = se_log = None
         corrected = True

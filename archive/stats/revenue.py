@@ -89,6 +89,50 @@ class BootstrapInterval:
     seed: int
 
 
+_POISSON_BITS = 16
+
+
+def _poisson_one_table() -> np.ndarray:
+    """Inverse-CDF lookup: a uniform 16-bit integer -> a Poisson(1) draw (tail beyond 1 - 2^-16 folded in)."""
+    pmf = np.array([math.exp(-1) / math.factorial(k) for k in range(16)])
+    thresholds = np.cumsum(pmf) * 2**_POISSON_BITS
+    return np.searchsorted(thresholds, np.arange(2**_POISSON_BITS), side="right").astype(np.float32)
+
+
+_POISSON_ONE = _poisson_one_table()
+
+
+def bootstrap_means(values: np.ndarray, n: int, replicates: int, rng: np.random.Generator) -> np.ndarray:
+    """Poisson-bootstrap replicates of the mean revenue per visitor of one arm.
+
+    Each buyer gets a Poisson(1) weight; the ``n - len(values)`` visitors without revenue together get a
+    Poisson(n - buyers) weight, which is the sum of their Poisson(1) weights."""
+    values = np.asarray(values, dtype=np.float32)
+    totals = np.zeros(replicates)
+    counts = np.zeros(replicates)
+    rows = max(1, 2_000_000 // max(1, len(values)))
+    for start in range(0, replicates, rows):
+        stop = min(replicates, start + rows)
+        draws = rng.integers(0, 2**_POISSON_BITS, size=(stop - start, len(values)), dtype=np.uint16)
+        weights = _POISSON_ONE[draws]
+        totals[start:stop] = (weights @ values).astype(np.float64)
+        counts[start:stop] = weights.sum(axis=1, dtype=np.float64)
+    counts += rng.poisson(max(0, n - len(values)), size=replicates)
+    return totals / np.maximum(counts, 1)
+
+
+def bootstrap_interval(
+    means_t: np.ndarray, means_c: np.ndarray, confidence: float = 0.95, seed: int = 0
+) -> BootstrapInterval:
+    """Percentile intervals of the RPV difference and relative lift from paired-up replicate means."""
+    tail = (1 - confidence) / 2 * 100
+    d_low, d_high = np.percentile(means_t - means_c, [tail, 100 - tail])
+    lift_low = lift_high = None
+    if np.all(means_c > 0):
+        lift_low, lift_high = (float(v) for v in np.percentile(means_t / means_c - 1, [tail, 100 - tail]))
+    return BootstrapInterval(float(d_low), float(d_high), lift_low, lift_high, len(means_t), seed)
+
+
 def poisson_bootstrap(
     buyers_t: np.ndarray,
     n_t: int,
@@ -98,30 +142,11 @@ def poisson_bootstrap(
     confidence: float = 0.95,
     seed: int = 0,
 ) -> BootstrapInterval:
-    """Percentile interval of the RPV difference and lift. Each buyer gets a Poisson(1) weight; the visitors
-    without revenue together get a Poisson(n - buyers) weight, which is the sum of their Poisson(1) weights."""
+    """Percentile interval of the RPV difference and lift of two arms (see :func:`bootstrap_means`)."""
     rng = np.random.default_rng(seed)
-
-    def replicate_means(values: np.ndarray, n: int) -> np.ndarray:
-        totals = np.empty(replicates)
-        counts = np.empty(replicates)
-        chunk = max(1, 4_000_000 // max(1, len(values)))
-        for start in range(0, replicates, chunk):
-            stop = min(replicates, start + chunk)
-            weights = rng.poisson(1.0, size=(stop - start, len(values))).astype(np.float64)
-            totals[start:stop] = weights @ values
-            counts[start:stop] = weights.sum(axis=1)
-        counts += rng.poisson(max(0, n - len(values)), size=replicates)
-        return totals / np.maximum(counts, 1)
-
-    m_t = replicate_means(np.asarray(buyers_t, float), n_t)
-    m_c = replicate_means(np.asarray(buyers_c, float), n_c)
-    tail = (1 - confidence) / 2 * 100
-    d_low, d_high = np.percentile(m_t - m_c, [tail, 100 - tail])
-    lift_low = lift_high = None
-    if np.all(m_c > 0):
-        lift_low, lift_high = (float(v) for v in np.percentile(m_t / m_c - 1, [tail, 100 - tail]))
-    return BootstrapInterval(float(d_low), float(d_high), lift_low, lift_high, replicates, seed)
+    m_t = bootstrap_means(buyers_t, n_t, replicates, rng)
+    m_c = bootstrap_means(buyers_c, n_c, replicates, rng)
+    return bootstrap_interval(m_t, m_c, confidence, seed)
 
 
 @dataclass(frozen=True)

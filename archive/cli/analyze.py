@@ -1,0 +1,79 @@
+"""The analyze command: one test, from its numbers to a verdict per arm."""
+
+from __future__ import annotations
+
+import json
+import sys
+from enum import StrEnum
+from pathlib import Path
+from typing import Annotated
+
+import typer
+
+from ..problems import errors
+from ..validate import load_record
+from .common import RecordsOption, err, out, print_problems, user_errors
+
+
+class MemoFormat(StrEnum):
+    table = "table"
+    json = "json"
+    markdown = "markdown"
+
+
+def analyze(
+    record_id: Annotated[str | None, typer.Argument(metavar="ID", help="Id of a test in the records folder.")] = None,
+    file: Annotated[
+        Path | None, typer.Option("--file", help="Analyse this record file instead (not yet filed).")
+    ] = None,
+    fmt: Annotated[MemoFormat, typer.Option("--format", "-f", help="table, json or markdown.")] = MemoFormat.table,
+    plot: Annotated[
+        Path | None, typer.Option("--plot", help="Write the posterior lift plot here (.svg or .png).")
+    ] = None,
+    margin: Annotated[
+        float | None, typer.Option(help="Equivalence margin on relative lift (default: the plan's minimum_lift).")
+    ] = None,
+    srm_alpha: Annotated[float, typer.Option(help="Sample ratio mismatch alarm threshold.")] = 0.001,
+    replicates: Annotated[int, typer.Option(help="Bootstrap replicates for order-level revenue.")] = 1000,
+    records: RecordsOption = Path("records"),
+) -> None:
+    """Analyse one test: trust checks, lift and probabilities per arm, revenue, verdicts, a recommendation."""
+    from ..analysis import Settings
+    from ..analysis import analyze as run_analysis
+    from ..report import build_memo, render_markdown, render_terminal
+
+    with user_errors():
+        path = _record_path(record_id, file, records)
+        loaded, problems = load_record(path)
+        if loaded is None or errors(problems):
+            print_problems(problems)
+            err.print(f"{path} has errors; fix them (see `archive check`) before analysing.", markup=False)
+            raise typer.Exit(1)
+        settings = Settings(margin=margin, srm_alpha=srm_alpha, bootstrap_replicates=replicates)
+        result = run_analysis(loaded.record, loaded.orders, settings)
+        if plot is not None:
+            from ..plots import posterior_lift_plot
+
+            posterior_lift_plot(loaded.record, result, plot, settings.prior)
+    if fmt is MemoFormat.json:
+        sys.stdout.write(json.dumps(result.to_dict(), indent=2, ensure_ascii=False) + "\n")
+    elif fmt is MemoFormat.markdown:
+        sys.stdout.write(render_markdown(build_memo(result)))
+    else:
+        render_terminal(build_memo(result), out)
+    if plot is not None:
+        err.print(f"plot written to {plot}", markup=False)
+
+
+def _record_path(record_id: str | None, file: Path | None, records: Path) -> Path:
+    if (record_id is None) == (file is None):
+        raise ValueError("give either a test ID or --file PATH")
+    if file is not None:
+        if not file.is_file():
+            raise FileNotFoundError(f"{file} not found")
+        return file
+    for suffix in (".yaml", ".yml"):
+        candidate = records / f"{record_id}{suffix}"
+        if candidate.is_file():
+            return candidate
+    raise FileNotFoundError(f"no record {record_id!r} in {records}; list them with `archive list`")

@@ -1,0 +1,74 @@
+"""Plots as SVG or PNG (matplotlib, no screen needed). Output is deterministic: fixed hash salt, no date."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+from .analysis import Analysis
+from .files import write_replace
+from .record import Record
+from .stats import bayes
+
+PALETTE = ["#1b6f8a", "#c9642b", "#5a8f3c", "#8a4f9e", "#b0353f", "#6b6b6b", "#d1a23b"]
+
+
+def _pyplot():  # type: ignore[no-untyped-def]
+    import matplotlib
+
+    matplotlib.use("Agg")
+    matplotlib.rcParams["svg.hashsalt"] = "archive"
+    matplotlib.rcParams["svg.fonttype"] = "none"
+    import matplotlib.pyplot as plt
+
+    return plt
+
+
+def posterior_lift_plot(
+    record: Record, analysis: Analysis, path: Path, prior: tuple[float, float] = (1.0, 1.0)
+) -> Path:
+    """Posterior density of each arm's relative lift in conversion against control; writes SVG or PNG."""
+    plt = _pyplot()
+    control = next(a for a in analysis.arms if a.control)
+    post_c = bayes.BetaPosterior.from_counts(control.conversions, control.visitors, prior)
+    fig, ax = plt.subplots(figsize=(7.5, 3.6), dpi=100)
+    lows = [c.credible_lift_low for c in analysis.comparisons]
+    highs = [c.credible_lift_high for c in analysis.comparisons]
+    span = max(highs) - min(lows)
+    grid = np.linspace(max(-0.99, min(lows) - 0.6 * span), max(highs) + 0.6 * span, 600)
+    for i, c in enumerate(analysis.comparisons):
+        arm = next(a for a in analysis.arms if a.name == c.arm)
+        post = bayes.BetaPosterior.from_counts(arm.conversions, arm.visitors, prior)
+        density = bayes.lift_density(post, post_c, grid)
+        colour = PALETTE[i % len(PALETTE)]
+        ax.plot(
+            grid * 100,
+            density / 100,
+            color=colour,
+            lw=1.8,
+            label=f"{c.arm}: P(beats control) {c.prob_beat_control:.2f}",
+        )
+        inside = (grid >= c.credible_lift_low) & (grid <= c.credible_lift_high)
+        ax.fill_between(grid[inside] * 100, density[inside] / 100, color=colour, alpha=0.15, lw=0)
+    ax.axvline(0, color="#333333", lw=0.8, ls="--")
+    ax.set_xlabel("relative lift in conversion against control (%)")
+    ax.set_ylabel("posterior density")
+    ax.set_title(f"{record.title}: where the true lift probably lies (shaded: 95% credible)", fontsize=9)
+    ax.legend(frameon=False, fontsize=8)
+    ax.spines[["top", "right"]].set_visible(False)
+    fig.tight_layout()
+    return save_figure(fig, path)
+
+
+def save_figure(fig, path: Path) -> Path:  # type: ignore[no-untyped-def]
+    import io
+
+    plt = _pyplot()
+    buffer = io.BytesIO()
+    kind = path.suffix.lower().lstrip(".") or "svg"
+    metadata = {"Date": None} if kind == "svg" else {"Software": None} if kind == "png" else None
+    fig.savefig(buffer, format=kind, metadata=metadata)
+    plt.close(fig)
+    write_replace(path, buffer.getvalue())
+    return path

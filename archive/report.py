@@ -1,0 +1,261 @@
+"""The analysis as a memo: one neutral model of headings, paragraphs and tables, rendered as Markdown or in the
+terminal. Numbers are rounded here and only here."""
+
+from __future__ import annotations
+
+import html
+import re
+from dataclasses import dataclass, field
+
+from .analysis import Analysis, Comparison
+
+STATUS_MARK = {"ok": "ok", "warning": "check", "failed": "FAILED"}
+
+
+@dataclass
+class Table:
+    headers: list[str]
+    rows: list[list[str]]
+
+
+@dataclass
+class Section:
+    heading: str
+    paragraphs: list[str] = field(default_factory=list)
+    tables: list[Table] = field(default_factory=list)
+    bullets: list[str] = field(default_factory=list)
+
+
+@dataclass
+class Memo:
+    title: str
+    lead: list[str]
+    sections: list[Section]
+
+
+def pct(value: float | None, digits: int = 1, signed: bool = False) -> str:
+    if value is None:
+        return "n/a"
+    return f"{value * 100:+.{digits}f}%" if signed else f"{value * 100:.{digits}f}%"
+
+
+def interval(low: float | None, high: float | None, digits: int = 1) -> str:
+    if low is None or high is None:
+        return "n/a"
+    return f"[{pct(low, digits, True)}, {pct(high, digits, True)}]"
+
+
+def money(value: float | None, signed: bool = False) -> str:
+    if value is None:
+        return "n/a"
+    return f"{value:+,.3f}" if signed else f"{value:,.3f}"
+
+
+def pvalue(p: float | None) -> str:
+    if p is None:
+        return "n/a"
+    return "<0.0001" if p < 1e-4 else f"{p:.4f}"
+
+
+def prob(p: float) -> str:
+    return f"{p:.3f}"
+
+
+def build_memo(a: Analysis) -> Memo:
+    rec = a.recommendation
+    lead = [f"Recommendation: {rec.explanation}."]
+    if rec.recorded_outcome is not None:
+        recorded = rec.recorded_outcome + (f" {rec.recorded_arm}" if rec.recorded_arm else "")
+        lead.append(
+            f"Recorded decision: {recorded} (agrees with the figures)."
+            if rec.agrees_with_record
+            else f"Recorded decision: {recorded}. Note: {rec.disagreement}"
+        )
+    else:
+        lead.append("No decision recorded yet.")
+    if not a.trusted:
+        failed = ", ".join(c.name for c in a.checks if c.status == "failed")
+        lead.append(f"Trust check failed ({failed}): every verdict below is downgraded one step.")
+    checks = Section(
+        "Trust checks",
+        tables=[Table(["check", "status", "detail"], [[c.name, STATUS_MARK[c.status], c.detail] for c in a.checks])],
+    )
+    by_arm = {c.arm: c for c in a.comparisons}
+    rows = []
+    for arm in a.arms:
+        c = by_arm.get(arm.name)
+        rows.append(
+            [
+                arm.name + (" (control)" if arm.control else ""),
+                f"{arm.visitors:,}",
+                f"{arm.conversions:,}",
+                f"{pct(arm.rate, 2)} {interval_plain(arm.rate_low, arm.rate_high)}",
+                "" if c is None else f"{pct(c.lift, 1, True)} {interval(c.lift_low, c.lift_high)}",
+                "" if c is None else pvalue(c.p_value),
+                "" if c is None else pvalue(c.p_holm),
+                "" if c is None else prob(c.prob_beat_control),
+                prob(arm.prob_best),
+                pct(arm.expected_loss, 3),
+                "" if c is None else c.verdict,
+            ]
+        )
+    conversion = Section(
+        "Conversion (primary metric)",
+        tables=[
+            Table(
+                [
+                    "arm",
+                    "visitors",
+                    "conversions",
+                    "rate (95% credible)",
+                    "lift vs control (95% CI)",
+                    "p",
+                    "Holm p",
+                    "P(beats control)",
+                    "P(best)",
+                    "expected loss",
+                    "verdict",
+                ],
+                rows,
+            )
+        ],
+        bullets=[f"{c.arm}: {c.verdict}: {c.reason}." for c in a.comparisons]
+        + [
+            f"{c.arm}: credible interval of the lift {interval(c.credible_lift_low, c.credible_lift_high)}; "
+            f"equivalence within +/-{pct(c.equivalence_margin)}: p {pvalue(c.equivalence_p)}"
+            + (" (zero cell: 0.5 added to each cell)" if c.zero_cell_correction else "")
+            for c in a.comparisons
+        ],
+    )
+    sections = [checks, conversion, _revenue_section(a), Section("Assumptions", bullets=list(a.assumptions))]
+    return Memo(f"{a.title} ({a.id})", lead, sections)
+
+
+def interval_plain(low: float, high: float) -> str:
+    return f"[{pct(low, 2)}, {pct(high, 2)}]"
+
+
+def _revenue_section(a: Analysis) -> Section:
+    control = next(x for x in a.arms if x.control)
+    rows = [
+        [
+            f"{control.name} (control)",
+            money(control.revenue_per_visitor),
+            money(control.average_order_value),
+            "",
+            "",
+            "",
+        ]
+    ]
+    bullets = []
+    for c in a.comparisons:
+        arm = next(x for x in a.arms if x.name == c.arm)
+        r = c.revenue
+        diff = money(r.difference, True)
+        if r.difference_low is not None:
+            diff += f" [{money(r.difference_low, True)}, {money(r.difference_high, True)}]"
+        rows.append(
+            [
+                c.arm,
+                money(arm.revenue_per_visitor),
+                money(arm.average_order_value),
+                diff,
+                f"{pct(r.lift, 1, True)} {interval(r.lift_low, r.lift_high)}" if r.lift is not None else "n/a",
+                r.method,
+            ]
+        )
+        bullets.append(f"{c.arm}: {r.note}.")
+        if r.bootstrap is not None:
+            b = r.bootstrap
+            bullets.append(
+                f"{c.arm}: bootstrap ({b.replicates} replicates) RPV difference "
+                f"[{money(b.difference_low, True)}, {money(b.difference_high, True)}], lift {interval(b.lift_low, b.lift_high)}."
+            )
+        if r.extreme_orders is not None:
+            e = r.extreme_orders
+            share = "n/a" if e.top_share_of_difference is None else pct(e.top_share_of_difference, 0)
+            survives = "keeps its sign" if e.sign_survives else "changes sign"
+            bullets.append(
+                f"{c.arm}: orders above {e.cap:,.2f} make {share} of the RPV difference; capped difference "
+                f"{money(r.capped_difference, True)} [{money(r.capped_difference_low, True)}, "
+                f"{money(r.capped_difference_high, True)}]; without each arm's top 1% of orders the difference "
+                f"{survives} ({money(e.difference_without_top, True)})."
+            )
+    table = Table(
+        ["arm", "revenue/visitor", "avg order value", "RPV difference (95% CI)", "RPV lift (95% CI)", "method"], rows
+    )
+    return Section("Revenue (secondary metrics)", tables=[table], bullets=bullets)
+
+
+# --- Markdown -------------------------------------------------------------------------------------------
+
+_MD_SPECIAL = re.compile(r"([\\`*_\[\]|~])")
+_MD_LINE_START = re.compile(r"^(?:([#+\->=])|(\d+)([.)]))")
+
+
+def md_text(text: str) -> str:
+    """Text from a record made safe for Markdown and HTML: one line, HTML escaped, Markdown syntax escaped (so
+    no raw HTML, link, emphasis or table cell break survives)."""
+    one_line = " ".join(text.split())
+    escaped = _MD_SPECIAL.sub(r"\\\1", html.escape(one_line, quote=False))
+    return _MD_LINE_START.sub(lambda m: "\\" + m[1] if m[1] else m[2] + "\\" + m[3], escaped)
+
+
+def render_markdown(memo: Memo) -> str:
+    out = [f"# {md_text(memo.title)}", ""]
+    out += [md_text(p) + "\n" for p in memo.lead]
+    for section in memo.sections:
+        out += [f"## {section.heading}", ""]
+        out += [md_text(p) + "\n" for p in section.paragraphs]
+        for table in section.tables:
+            out.append("| " + " | ".join(md_text(h) for h in table.headers) + " |")
+            out.append("|" + "---|" * len(table.headers))
+            out += ["| " + " | ".join(md_text(c) for c in row) + " |" for row in table.rows]
+            out.append("")
+        out += [f"- {md_text(b)}" for b in section.bullets]
+        if section.bullets:
+            out.append("")
+    return "\n".join(out).rstrip() + "\n"
+
+
+# --- terminal -------------------------------------------------------------------------------------------
+
+
+def render_terminal(memo: Memo, console) -> None:  # type: ignore[no-untyped-def]
+    from rich.table import Table as RichTable
+
+    console.print(f"[bold]{_rich_escape(memo.title)}[/bold]")
+    for line in memo.lead:
+        console.print(line, markup=False)
+    for section in memo.sections:
+        console.print(f"\n[bold underline]{section.heading}[/bold underline]")
+        for p in section.paragraphs:
+            console.print(p, markup=False)
+        for table in section.tables:
+            rich_table = RichTable(header_style="bold", show_lines=False)
+            for header in table.headers:
+                rich_table.add_column(header, overflow="fold")
+            for row in table.rows:
+                rich_table.add_row(*(_styled(c) for c in row))
+            console.print(rich_table)
+        for b in section.bullets:
+            console.print(f"  - {b}", markup=False)
+
+
+def _rich_escape(text: str) -> str:
+    from rich.markup import escape
+
+    return escape(text)
+
+
+_STYLES = {"winner": "green", "loser": "red", "FAILED": "bold red", "check": "yellow", "trade-off": "magenta"}
+
+
+def _styled(cell: str):  # type: ignore[no-untyped-def]
+    from rich.text import Text
+
+    return Text(cell, style=_STYLES.get(cell, ""))
+
+
+def comparison_line(c: Comparison) -> str:
+    return f"{c.arm}: {c.verdict} ({pct(c.lift, 1, True)}, P(beats control) {prob(c.prob_beat_control)})"
