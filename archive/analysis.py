@@ -124,7 +124,7 @@ class Comparison:
 
 @dataclass
 class Recommendation:
-    action: Literal["ship", "keep-control", "iterate"]
+    action: str  # ship, keep-control or iterate
     arm: str | None
     keep_arms: list[str]
     visitors_per_arm_needed: int | None
@@ -306,7 +306,9 @@ def _trust_checks(record: Record, arms: list[Arm], s: Settings) -> list[TrustChe
             TrustCheck(
                 "sample ratio",
                 "failed",
-                f"traffic split {shares} does not fit {basis} (chi-square {srm.chi_square:.2f}, df {srm.df}, p {srm.p_value:.2g} < {s.srm_alpha:g}): assignment or tracking is broken, so the comparison may be biased",
+                f"traffic split {shares} does not fit {basis} (chi-square {srm.chi_square:.2f}, df {srm.df}, "
+                f"p {srm.p_value:.2g} < {s.srm_alpha:g}): assignment or tracking is broken, "
+                "so the comparison may be biased",
                 srm.p_value,
             )
         )
@@ -332,7 +334,8 @@ def _trust_checks(record: Record, arms: list[Arm], s: Settings) -> list[TrustChe
                 TrustCheck(
                     "planned sample",
                     "failed",
-                    f"analysed early: {least:,} visitors in the smallest arm of {plan.visitors_per_arm:,} planned ({least / plan.visitors_per_arm:.0%}); stopping before the plan inflates false positives",
+                    f"analysed early: {least:,} visitors in the smallest arm of {plan.visitors_per_arm:,} planned "
+                    f"({least / plan.visitors_per_arm:.0%}); stopping before the plan inflates false positives",
                 )
             )
         else:
@@ -350,7 +353,8 @@ def _trust_checks(record: Record, arms: list[Arm], s: Settings) -> list[TrustChe
                 TrustCheck(
                     "whole weeks",
                     "warning",
-                    f"ran {days} days ({days / 7:.1f} weeks): weekday patterns are not balanced (common practice: whole weeks)",
+                    f"ran {days} days ({days / 7:.1f} weeks): weekday patterns are not balanced "
+                    "(common practice: whole weeks)",
                 )
             )
         else:
@@ -361,7 +365,8 @@ def _trust_checks(record: Record, arms: list[Arm], s: Settings) -> list[TrustChe
             TrustCheck(
                 "enough conversions",
                 "warning",
-                f"fewer than {MIN_EVENTS} conversions or non-conversions in {', '.join(thin)}: z-test and normal intervals are rough; read the Bayesian figures",
+                f"fewer than {MIN_EVENTS} conversions or non-conversions in {', '.join(thin)}: "
+                "z-test and normal intervals are rough; read the Bayesian figures",
             )
         )
     else:
@@ -506,7 +511,10 @@ def _recommend(
         chosen = winners[0]
         others = f"; {', '.join(c.arm for c in winners[1:])} also beat control" if len(winners) > 1 else ""
         action, arm, keep = "ship", chosen.arm, [chosen.arm]
-        explanation = f"ship {chosen.arm}: it beats control (P {chosen.prob_beat_control:.3f}, Holm p {chosen.p_holm:.3g}) and has the highest P(best){others}"
+        explanation = (
+            f"ship {chosen.arm}: it beats control (P {chosen.prob_beat_control:.3f}, Holm p {chosen.p_holm:.3g}) "
+            f"and has the highest P(best){others}"
+        )
     elif open_arms:
         action, arm, keep = "iterate", None, open_arms
         plan = record.plan
@@ -517,7 +525,8 @@ def _recommend(
         if 0 < base < 1 and 0 < base * (1 + lift) < 1:
             needed = math.ceil(visitors_per_arm(base, base * (1 + lift), alpha=alpha, power=power))
         size = (
-            f"; a retest needs about {needed:,} visitors per arm to detect +{lift:.0%} at power {power:.0%} (baseline {base:.2%}, Bonferroni alpha {alpha:.3g})"
+            f"; a retest needs about {needed:,} visitors per arm to detect +{lift:.0%} at power {power:.0%} "
+            f"(baseline {base:.2%}, Bonferroni alpha {alpha:.3g})"
             if needed
             else ""
         )

@@ -22,7 +22,7 @@ from .orders import orders_path
 from .problems import ArchiveInvalid, Problem, errors
 from .record import Record, RecordCore
 from .tables import ARM, CHILD_TABLES, RECORD, SEGMENT, TAG, THEME
-from .validate import LoadedRecord, Summary, archive_problems, load_record, record_files
+from .validate import LoadedRecord, Summary, archive_problems, gc_paused, load_record, record_files
 from .yamlsource import YamlProblem, read_yaml
 
 _CHUNK = 500
@@ -79,15 +79,16 @@ def index_archive(records_dir: Path, engine: Engine, progress: Callable[[int], N
     problems: list[Problem] = []
     loaded: list[LoadedRecord] = []
     failed: list[str] = []
-    for path, raw in changed:
-        record, found = load_record(path, raw)
-        problems.extend(found)
-        if record is not None:
-            loaded.append(record)
-        else:
-            failed.append(path.stem)
-        if progress is not None:
-            progress(1)
+    with gc_paused():
+        for path, raw in changed:
+            record, found = load_record(path, raw)
+            problems.extend(found)
+            if record is not None:
+                loaded.append(record)
+            else:
+                failed.append(path.stem)
+            if progress is not None:
+                progress(1)
     summaries = [lr.summary for lr in loaded]
     summaries += _known_summaries(engine, records_dir, unchanged_paths)
     problems += archive_problems(summaries, _LineFinder(records_dir, loaded), failed)
@@ -98,7 +99,7 @@ def index_archive(records_dir: Path, engine: Engine, progress: Callable[[int], N
     present = {p.name for p in files}
     gone = [k for name, k in known.items() if name not in present]
     replaced = [known[path.name] for path, _ in changed if path.name in known]
-    with engine.begin() as conn:
+    with gc_paused(), engine.begin() as conn:
         _delete(conn, [k.id for k in gone + replaced])
         _insert(conn, loaded, {path.name: raw for path, raw in changed}, records_dir)
     old_ids = {k.id for k in replaced}

@@ -7,7 +7,7 @@ import html
 import re
 from dataclasses import dataclass, field
 
-from .analysis import Analysis, Comparison
+from .analysis import Analysis
 
 STATUS_MARK = {"ok": "ok", "warning": "check", "failed": "FAILED"}
 
@@ -169,7 +169,8 @@ def _revenue_section(a: Analysis) -> Section:
             b = r.bootstrap
             bullets.append(
                 f"{c.arm}: bootstrap ({b.replicates} replicates) RPV difference "
-                f"[{money(b.difference_low, True)}, {money(b.difference_high, True)}], lift {interval(b.lift_low, b.lift_high)}."
+                f"[{money(b.difference_low, True)}, {money(b.difference_high, True)}], "
+                f"lift {interval(b.lift_low, b.lift_high)}."
             )
         if r.extreme_orders is not None:
             e = r.extreme_orders
@@ -255,7 +256,3 @@ def _styled(cell: str):  # type: ignore[no-untyped-def]
     from rich.text import Text
 
     return Text(cell, style=_STYLES.get(cell, ""))
-
-
-def comparison_line(c: Comparison) -> str:
-    return f"{c.arm}: {c.verdict} ({pct(c.lift, 1, True)}, P(beats control) {prob(c.prob_beat_control)})"

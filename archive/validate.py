@@ -9,10 +9,12 @@ spelled two ways). ``check_archive`` does both for a folder. Nothing here writes
 from __future__ import annotations
 
 import difflib
+import gc
 import types
 import typing
 from collections import defaultdict
-from collections.abc import Callable, Hashable, Iterable, Sequence
+from collections.abc import Callable, Hashable, Iterable, Iterator, Sequence
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -390,21 +392,39 @@ def archive_problems(summaries: Iterable[Summary], line_of: LineOf, unreadable: 
     return problems
 
 
+@contextmanager
+def gc_paused() -> Iterator[None]:
+    """Pause the cyclic garbage collector while records pile up in memory.
+
+    Loading an archive keeps every record (and its lines) alive until the archive-wide checks have run: millions
+    of small objects without reference cycles, which the collector would otherwise scan again and again (a third
+    of the time of a large check). Reference counting frees memory as usual meanwhile.
+    """
+    was_enabled = gc.isenabled()
+    gc.disable()
+    try:
+        yield
+    finally:
+        if was_enabled:
+            gc.enable()
+
+
 def check_archive(records_dir: Path, progress: Callable[[int], None] | None = None) -> CheckReport:
     """Check every record of a folder. Never writes."""
     report = CheckReport()
     paths = record_files(records_dir)
     report.files = len(paths)
     failed: list[str] = []
-    for path in paths:
-        loaded, problems = load_record(path)
-        report.problems.extend(problems)
-        if loaded is not None:
-            report.records.append(loaded)
-        else:
-            failed.append(path.stem)
-        if progress is not None:
-            progress(1)
+    with gc_paused():
+        for path in paths:
+            loaded, problems = load_record(path)
+            report.problems.extend(problems)
+            if loaded is not None:
+                report.records.append(loaded)
+            else:
+                failed.append(path.stem)
+            if progress is not None:
+                progress(1)
     docs = {lr.path: lr.doc for lr in report.records}
     summaries = (lr.summary for lr in report.records)
     report.problems.extend(archive_problems(summaries, lambda p, loc: docs[p].line_of(loc), failed))
