@@ -60,6 +60,7 @@ def _hash(record_path: Path, raw: bytes, orders_file: str | None) -> str:
     return digest
 
 
+@gc_paused()
 def index_archive(records_dir: Path, engine: Engine, progress: Callable[[int], None] | None = None) -> IndexReport:
     """Bring the index in line with the records folder. Raises :class:`ArchiveInvalid` on any error."""
     report = IndexReport(rebuilt=not prepare(engine))
@@ -79,16 +80,15 @@ def index_archive(records_dir: Path, engine: Engine, progress: Callable[[int], N
     problems: list[Problem] = []
     loaded: list[LoadedRecord] = []
     failed: list[str] = []
-    with gc_paused():
-        for path, raw in changed:
-            record, found = load_record(path, raw)
-            problems.extend(found)
-            if record is not None:
-                loaded.append(record)
-            else:
-                failed.append(path.stem)
-            if progress is not None:
-                progress(1)
+    for path, raw in changed:
+        record, found = load_record(path, raw)
+        problems.extend(found)
+        if record is not None:
+            loaded.append(record)
+        else:
+            failed.append(path.stem)
+        if progress is not None:
+            progress(1)
     summaries = [lr.summary for lr in loaded]
     summaries += _known_summaries(engine, records_dir, unchanged_paths)
     problems += archive_problems(summaries, _LineFinder(records_dir, loaded), failed)
@@ -99,7 +99,7 @@ def index_archive(records_dir: Path, engine: Engine, progress: Callable[[int], N
     present = {p.name for p in files}
     gone = [k for name, k in known.items() if name not in present]
     replaced = [known[path.name] for path, _ in changed if path.name in known]
-    with gc_paused(), engine.begin() as conn:
+    with engine.begin() as conn:
         _delete(conn, [k.id for k in gone + replaced])
         _insert(conn, loaded, {path.name: raw for path, raw in changed}, records_dir)
     old_ids = {k.id for k in replaced}
