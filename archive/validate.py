@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import difflib
 import gc
+import os
 import types
 import typing
 from collections import defaultdict
@@ -69,7 +70,10 @@ def record_files(records_dir: Path) -> list[Path]:
     """The record files of an archive folder (top level only), sorted."""
     if not records_dir.is_dir():
         raise FileNotFoundError(f"records folder {records_dir} does not exist; create it or pass --records")
-    return sorted(p for p in records_dir.iterdir() if p.suffix in RECORD_SUFFIXES and p.is_file())
+    found = [p for p in records_dir.iterdir() if p.suffix in RECORD_SUFFIXES and p.is_file()]
+    # Paths in one folder sort as their names do (case-folded where the OS folds case); the key spares the
+    # slow comparison of whole paths.
+    return sorted(found, key=lambda p: os.path.normcase(p.name))
 
 
 # --- one file -------------------------------------------------------------------------------------------
@@ -367,12 +371,16 @@ def archive_problems(summaries: Iterable[Summary], line_of: LineOf, unreadable: 
             problems.append(
                 Problem(s.path, line_of(s.path, ("iterates_on",)), "iterates_on", f"no record {target!r}{hint}")
             )
+    label_of: dict[str, str] = {}  # the same few labels recur in every record
     for kind in ("themes", "tags", "page_area"):
         spellings: dict[str, dict[str, Summary]] = defaultdict(dict)
         for s in items:
             values = (s.page_area,) if kind == "page_area" else getattr(s, kind)
             for value in values:
-                spellings[canonical_label(value)].setdefault(value, s)
+                label = label_of.get(value)
+                if label is None:
+                    label = label_of[value] = canonical_label(value)
+                spellings[label].setdefault(value, s)
         for canon, seen in spellings.items():
             if len(seen) < 2:
                 continue

@@ -1,0 +1,207 @@
+"""Inverse-variance meta-analysis of effect estimates y_i with within-study variances v_i.
+
+* Fixed effect (common effect): weights 1/v_i; Cochran's Q, its chi-square p-value, I^2 (Higgins & Thompson 2002).
+* Random effects: tau^2 by DerSimonian-Laird (1986, truncated at 0), Paule-Mandel, or REML; the pooled mean with
+  weights 1/(v_i + tau^2); the Hartung-Knapp-Sidik-Jonkman interval (t with k-1 df, q not truncated at 1, as
+  metafor's test="knha"); the Q-profile interval of tau^2 (Viechtbauer 2007); the prediction interval of
+  Higgins, Thompson & Spiegelhalter (2009): mu +/- t_{k-2} sqrt(tau^2 + SE(mu)^2).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import Literal
+
+import numpy as np
+from scipy import optimize, stats
+
+TauMethod = Literal["DL", "PM", "REML"]
+
+
+def _arrays(effects: Sequence[float], variances: Sequence[float]) -> tuple[np.ndarray, np.ndarray]:
+    y = np.asarray(effects, dtype=float)
+    v = np.asarray(variances, dtype=float)
+    if y.shape != v.shape or y.ndim != 1:
+        raise ValueError("effects and variances must be two 1-d sequences of the same length")
+    if len(y) == 0:
+        raise ValueError("needs at least one effect")
+    if np.any(~np.isfinite(y)) or np.any(~np.isfinite(v)) or np.any(v <= 0):
+        raise ValueError("effects must be finite and variances finite and > 0")
+    return y, v
+
+
+@dataclass(frozen=True)
+class Heterogeneity:
+    k: int
+    fixed_mean: float
+    fixed_se: float
+    q: float
+    df: int
+    p_value: float | None  # None for a single estimate
+    i_squared: float  # fraction, 0..1
+
+
+def heterogeneity(effects: Sequence[float], variances: Sequence[float]) -> Heterogeneity:
+    """Fixed-effect mean and Cochran's Q with I^2 = max(0, (Q - df) / Q)."""
+    y, v = _arrays(effects, variances)
+    w = 1 / v
+    mean = float(np.sum(w * y) / np.sum(w))
+    q = float(np.sum(w * (y - mean) ** 2))
+    df = len(y) - 1
+    p = float(stats.chi2.sf(q, df)) if df > 0 else None
+    i2 = max(0.0, (q - df) / q) if q > 0 else 0.0
+    return Heterogeneity(len(y), mean, float(math.sqrt(1 / np.sum(w))), q, df, p, i2)
+
+
+def tau2_dl(y: np.ndarray, v: np.ndarray) -> float:
+    w = 1 / v
+    mean = np.sum(w * y) / np.sum(w)
+    q = np.sum(w * (y - mean) ** 2)
+    c = np.sum(w) - np.sum(w**2) / np.sum(w)
+    return float(max(0.0, (q - (len(y) - 1)) / c)) if c > 0 else 0.0
+
+
+def _generalised_q(tau2: float, y: np.ndarray, v: np.ndarray) -> float:
+    w = 1 / (v + tau2)
+    mean = np.sum(w * y) / np.sum(w)
+    return float(np.sum(w * (y - mean) ** 2))
+
+
+def tau2_pm(y: np.ndarray, v: np.ndarray) -> float:
+    """Paule-Mandel: the tau^2 at which the generalised Q equals its expectation k - 1."""
+    k = len(y)
+    if k < 2 or _generalised_q(0.0, y, v) <= k - 1:
+        return 0.0
+    hi = max(1.0, float(np.var(y)) * 10)
+    while _generalised_q(hi, y, v) > k - 1:
+        hi *= 10
+    return float(optimize.brentq(lambda t: _generalised_q(t, y, v) - (k - 1), 0.0, hi, xtol=1e-14, rtol=1e-12))
+
+
+def tau2_reml(y: np.ndarray, v: np.ndarray) -> float:
+    """Restricted maximum likelihood, by a bounded one-dimensional search of the restricted log-likelihood."""
+    if len(y) < 2:
+        return 0.0
+
+    def negative_restricted_loglik(tau2: float) -> float:
+        w = 1 / (v + tau2)
+        mean = np.sum(w * y) / np.sum(w)
+        return float(0.5 * (np.sum(np.log(v + tau2)) + np.log(np.sum(w)) + np.sum(w * (y - mean) ** 2)))
+
+    hi = max(1e-8, float(np.var(y)) * 20 + float(np.max(v)))
+    result = optimize.minimize_scalar(
+        negative_restricted_loglik, bounds=(0.0, hi), method="bounded", options={"xatol": 1e-12}
+    )
+    tau2 = float(result.x)
+    return 0.0 if negative_restricted_loglik(0.0) <= negative_restricted_loglik(tau2) else tau2
+
+
+TAU2 = {"DL": tau2_dl, "PM": tau2_pm, "REML": tau2_reml}
+
+
+@dataclass(frozen=True)
+class RandomEffects:
+    k: int
+    method: str
+    tau2: float
+    tau2_low: float | None
+    tau2_high: float | None
+    mean: float
+    se: float
+    low: float
+    high: float
+    p_value: float
+    interval_kind: str  # "HKSJ (t, k-1 df)" or "normal"
+    prediction_low: float | None
+    prediction_high: float | None
+    q: float
+    q_p_value: float | None
+    i_squared: float
+
+
+def random_effects(
+    effects: Sequence[float],
+    variances: Sequence[float],
+    method: TauMethod = "REML",
+    hksj: bool = True,
+    confidence: float = 0.95,
+) -> RandomEffects:
+    y, v = _arrays(effects, variances)
+    if method not in TAU2:
+        raise ValueError(f"unknown tau^2 method {method!r}; use DL, PM or REML")
+    k = len(y)
+    tau2 = TAU2[method](y, v)
+    w = 1 / (v + tau2)
+    mean = float(np.sum(w * y) / np.sum(w))
+    se = float(math.sqrt(1 / np.sum(w)))
+    tail = 0.5 + confidence / 2
+    if hksj and k >= 2:
+        q_hk = float(np.sum(w * (y - mean) ** 2) / (k - 1))
+        se_used = se * math.sqrt(q_hk)
+        crit = float(stats.t.ppf(tail, k - 1))
+        p = float(2 * stats.t.sf(abs(mean / se_used), k - 1)) if se_used > 0 else 0.0
+        kind = "HKSJ (t, k-1 df)"
+    else:
+        se_used, crit, kind = se, float(stats.norm.ppf(tail)), "normal"
+        p = float(2 * stats.norm.sf(abs(mean / se)))
+    het = heterogeneity(y, v)
+    pred_low = pred_high = None
+    if k >= 3:
+        half = float(stats.t.ppf(tail, k - 2)) * math.sqrt(tau2 + se**2)
+        pred_low, pred_high = mean - half, mean + half
+    t_low, t_high = tau2_q_profile(y, v, confidence) if k >= 2 else (None, None)
+    return RandomEffects(
+        k,
+        method,
+        tau2,
+        t_low,
+        t_high,
+        mean,
+        se_used,
+        mean - crit * se_used,
+        mean + crit * se_used,
+        p,
+        kind,
+        pred_low,
+        pred_high,
+        het.q,
+        het.p_value,
+        het.i_squared,
+    )
+
+
+def tau2_q_profile(y: np.ndarray, v: np.ndarray, confidence: float = 0.95) -> tuple[float, float]:
+    """Q-profile interval of tau^2: the tau^2 values at which the generalised Q equals chi-square quantiles."""
+    k = len(y)
+    upper_q = stats.chi2.ppf(0.5 + confidence / 2, k - 1)
+    lower_q = stats.chi2.ppf(0.5 - confidence / 2, k - 1)
+
+    def solve(target: float) -> float:
+        if _generalised_q(0.0, y, v) <= target:
+            return 0.0
+        hi = max(1.0, float(np.var(y)) * 10)
+        while _generalised_q(hi, y, v) > target:
+            hi *= 10
+        return float(optimize.brentq(lambda t: _generalised_q(t, y, v) - target, 0.0, hi, xtol=1e-14))
+
+    return solve(upper_q), solve(lower_q)
+
+
+@dataclass(frozen=True)
+class Interaction:
+    difference: float
+    se: float
+    z: float
+    p_value: float
+
+
+def interaction_test(e1: float, se1: float, e2: float, se2: float) -> Interaction:
+    """Altman & Bland (2003), BMJ 326:219: do two independent estimates differ? z = (E1 - E2) / sqrt(SE1^2 + SE2^2)."""
+    if se1 <= 0 or se2 <= 0:
+        raise ValueError("standard errors must be > 0")
+    d = e1 - e2
+    se = math.sqrt(se1**2 + se2**2)
+    z = d / se
+    return Interaction(d, se, z, float(2 * stats.norm.sf(abs(z))))
