@@ -89,7 +89,8 @@ def test_seventeen_study_or_dl_hksj() -> None:
     assert half == pytest.approx(stats.t.ppf(0.975, 15) * math.sqrt(r.tau2 + plain.se**2), rel=1e-12)
 
 
-# CLASP trials, DerSimonian & Kacker (2007) Tables 3-4, via metafor tests/testthat/test_analysis_example_dersimonian2007.r
+# CLASP trials, DerSimonian & Kacker (2007) Tables 3-4,
+# via metafor tests/testthat/test_analysis_example_dersimonian2007.r
 CLASP = dict(
     n1=[156, 303, 565, 1570, 103, 4659],
     n2=[74, 303, 477, 1565, 105, 4650],

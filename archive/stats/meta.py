@@ -20,7 +20,10 @@ from scipy import optimize, stats
 TauMethod = Literal["DL", "PM", "REML"]
 
 
-def _arrays(effects: Sequence[float], variances: Sequence[float]) -> tuple[np.ndarray, np.ndarray]:
+ArrayLike = Sequence[float] | np.ndarray
+
+
+def _arrays(effects: ArrayLike, variances: ArrayLike) -> tuple[np.ndarray, np.ndarray]:
     y = np.asarray(effects, dtype=float)
     v = np.asarray(variances, dtype=float)
     if y.shape != v.shape or y.ndim != 1:
@@ -43,7 +46,7 @@ class Heterogeneity:
     i_squared: float  # fraction, 0..1
 
 
-def heterogeneity(effects: Sequence[float], variances: Sequence[float]) -> Heterogeneity:
+def heterogeneity(effects: ArrayLike, variances: ArrayLike) -> Heterogeneity:
     """Fixed-effect mean and Cochran's Q with I^2 = max(0, (Q - df) / Q)."""
     y, v = _arrays(effects, variances)
     w = 1 / v
@@ -122,8 +125,8 @@ class RandomEffects:
 
 
 def random_effects(
-    effects: Sequence[float],
-    variances: Sequence[float],
+    effects: ArrayLike,
+    variances: ArrayLike,
     method: TauMethod = "REML",
     hksj: bool = True,
     confidence: float = 0.95,
