@@ -149,23 +149,23 @@ class Analysis:
     settings: dict[str, Any]
 
     def to_dict(self) -> dict[str, Any]:
-        return _clean(dataclasses.asdict(self))
+        return json_safe(dataclasses.asdict(self))
 
     @property
     def trusted(self) -> bool:
         return all(c.status != "failed" for c in self.checks)
 
 
-def _clean(value: Any) -> Any:
+def json_safe(value: Any) -> Any:
     """JSON-safe: non-finite floats become None, tuples lists."""
     if isinstance(value, dict):
-        return {k: _clean(v) for k, v in value.items()}
+        return {k: json_safe(v) for k, v in value.items()}
     if isinstance(value, list | tuple):
-        return [_clean(v) for v in value]
+        return [json_safe(v) for v in value]
     if isinstance(value, float) and not math.isfinite(value):
         return None
     if isinstance(value, np.floating):
-        return _clean(float(value))
+        return json_safe(float(value))
     if isinstance(value, np.bool_):
         return bool(value)
     return value
@@ -254,7 +254,7 @@ def analyze(record: Record, orders: Orders | None = None, settings: Settings | N
         arms=arm_results,
         comparisons=comparisons,
         recommendation=recommendation,
-        settings=_clean(
+        settings=json_safe(
             {
                 "prior": list(s.prior),
                 "prior_label": s.prior_label,

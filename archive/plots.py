@@ -9,6 +9,7 @@ import numpy as np
 from .analysis import Analysis
 from .files import write_replace
 from .record import Record
+from .segments import SegmentAnalysis
 from .stats import bayes
 
 PALETTE = ["#1b6f8a", "#c9642b", "#5a8f3c", "#8a4f9e", "#b0353f", "#6b6b6b", "#d1a23b"]
@@ -72,3 +73,35 @@ def save_figure(fig, path: Path) -> Path:  # type: ignore[no-untyped-def]
     plt.close(fig)
     write_replace(path, buffer.getvalue())
     return path
+
+
+def segment_forest_plot(segments: SegmentAnalysis, arm: str, path: Path) -> Path:
+    """Forest plot of one arm's lift against control in each segment, with the mix-adjusted lift per dimension."""
+    plt = _pyplot()
+    labels: list[str] = []
+    points: list[tuple[float, float, float, bool, bool]] = []  # lift, low, high, is_summary, small
+    for d in segments.dimensions:
+        for r in d.rows:
+            if r.arm == arm and r.lift is not None and r.lift_low is not None and r.lift_high is not None:
+                labels.append(f"{d.dimension}: {r.segment}" + (" (small)" if r.small else ""))
+                points.append((r.lift, r.lift_low, r.lift_high, False, r.small))
+        mix = next((m for m in d.mix_checks if m.arm == arm), None)
+        if mix is not None and mix.adjusted_lift is not None and mix.adjusted_low is not None:
+            labels.append(f"{d.dimension}: all (mix-adjusted)")
+            points.append((mix.adjusted_lift, mix.adjusted_low, mix.adjusted_high or mix.adjusted_lift, True, False))
+    fig, ax = plt.subplots(figsize=(7.5, 0.45 * len(points) + 1.4), dpi=100)
+    for row, (lift, low, high, summary, small) in enumerate(points):
+        y = len(points) - 1 - row
+        colour = "#333333" if summary else ("#9a9a9a" if small else PALETTE[0])
+        if summary:
+            ax.fill([low * 100, lift * 100, high * 100, lift * 100], [y, y + 0.25, y, y - 0.25], color=colour)
+        else:
+            ax.plot([low * 100, high * 100], [y, y], color=colour, lw=1.6)
+            ax.plot([lift * 100], [y], "s", color=colour, ms=6)
+    ax.axvline(0, color="#333333", lw=0.8, ls="--")
+    ax.set_yticks(range(len(points)), list(reversed(labels)), fontsize=8)
+    ax.set_xlabel(f"relative lift of {arm} against control (%), 95% CI")
+    ax.set_title(f"{segments.id}: {arm} by segment", fontsize=9)
+    ax.spines[["top", "right"]].set_visible(False)
+    fig.tight_layout()
+    return save_figure(fig, path)

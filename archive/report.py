@@ -8,6 +8,7 @@ import re
 from dataclasses import dataclass, field
 
 from .analysis import Analysis
+from .segments import SegmentAnalysis
 
 STATUS_MARK = {"ok": "ok", "warning": "check", "failed": "FAILED"}
 
@@ -61,7 +62,7 @@ def prob(p: float) -> str:
     return f"{p:.3f}"
 
 
-def build_memo(a: Analysis) -> Memo:
+def build_memo(a: Analysis, segments: SegmentAnalysis | None = None) -> Memo:
     rec = a.recommendation
     lead = [f"Recommendation: {rec.explanation}."]
     if rec.recorded_outcome is not None:
@@ -127,7 +128,10 @@ def build_memo(a: Analysis) -> Memo:
             for c in a.comparisons
         ],
     )
-    sections = [checks, conversion, _revenue_section(a), Section("Assumptions", bullets=list(a.assumptions))]
+    sections = [checks, conversion, _revenue_section(a)]
+    if segments is not None:
+        sections += segment_sections(segments)
+    sections.append(Section("Assumptions", bullets=list(a.assumptions)))
     return Memo(f"{a.title} ({a.id})", lead, sections)
 
 
@@ -186,6 +190,56 @@ def _revenue_section(a: Analysis) -> Section:
         ["arm", "revenue/visitor", "avg order value", "RPV difference (95% CI)", "RPV lift (95% CI)", "method"], rows
     )
     return Section("Revenue (secondary metrics)", tables=[table], bullets=bullets)
+
+
+def segment_sections(seg: SegmentAnalysis) -> list[Section]:
+    sections = []
+    for d in seg.dimensions:
+        rows = [
+            [
+                r.segment + (" (small)" if r.small else ""),
+                r.arm,
+                f"{r.visitors:,} / {r.control_visitors:,}",
+                f"{pct(r.share_of_arm)} / {pct(r.share_of_control)}",
+                f"{pct(r.rate, 2)} / {pct(r.control_rate, 2)}",
+                f"{pct(r.lift, 1, True)} {interval(r.lift_low, r.lift_high)}",
+                pvalue(r.p_value),
+                pvalue(r.p_adjusted),
+                pvalue(r.srm_p_value),
+            ]
+            for r in d.rows
+        ]
+        headers = [
+            "segment",
+            "arm",
+            "visitors (arm / control)",
+            "share of traffic",
+            "rate (arm / control)",
+            "lift (95% CI)",
+            "p",
+            f"{seg.adjustment} p",
+            "split p",
+        ]
+        bullets = [f"{t.arm}: {t.statement}." for t in d.effect_tests]
+        for m in d.mix_checks:
+            if m.adjusted_lift is not None:
+                bullets.append(
+                    f"{m.arm}: pooled lift {pct(m.pooled_lift, 1, True)}; mix-adjusted (Mantel-Haenszel) "
+                    f"{pct(m.adjusted_lift, 1, True)} {interval(m.adjusted_low, m.adjusted_high)}."
+                )
+            if m.warning:
+                bullets.append(f"Warning: {m.warning}.")
+        sections.append(
+            Section(
+                f"Segments by {d.dimension} ({d.label})",
+                paragraphs=[] if d.preregistered else ["Exploratory cut: not named in the plan before the test."],
+                tables=[Table(headers, rows)],
+                bullets=bullets,
+            )
+        )
+    if seg.dimensions:
+        sections[-1].bullets += seg.notes
+    return sections
 
 
 # --- Markdown -------------------------------------------------------------------------------------------

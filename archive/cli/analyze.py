@@ -15,6 +15,11 @@ from ..validate import load_record
 from .common import RecordsOption, err, out, print_problems, user_errors
 
 
+class Adjust(StrEnum):
+    bh = "bh"
+    holm = "holm"
+
+
 class MemoFormat(StrEnum):
     table = "table"
     json = "json"
@@ -35,12 +40,20 @@ def analyze(
     ] = None,
     srm_alpha: Annotated[float, typer.Option(help="Sample ratio mismatch alarm threshold.")] = 0.001,
     replicates: Annotated[int, typer.Option(help="Bootstrap replicates for order-level revenue.")] = 1000,
+    by: Annotated[
+        list[str] | None, typer.Option("--by", help="Segment dimension to slice by (repeat for several).")
+    ] = None,
+    adjust: Annotated[Adjust, typer.Option(help="Multiple-comparison adjustment across segments.")] = Adjust.bh,
+    forest: Annotated[
+        Path | None, typer.Option(help="With --by: write one forest plot per arm, named <stem>-<arm><suffix>.")
+    ] = None,
     records: RecordsOption = Path("records"),
 ) -> None:
     """Analyse one test: trust checks, lift and probabilities per arm, revenue, verdicts, a recommendation."""
     from ..analysis import Settings
     from ..analysis import analyze as run_analysis
     from ..report import build_memo, render_markdown, render_terminal
+    from ..segments import analyze_segments
 
     with user_errors():
         path = _record_path(record_id, file, records)
@@ -51,18 +64,28 @@ def analyze(
             raise typer.Exit(1)
         settings = Settings(margin=margin, srm_alpha=srm_alpha, bootstrap_replicates=replicates)
         result = run_analysis(loaded.record, loaded.orders, settings)
+        segments = analyze_segments(loaded.record, by, adjust.value, settings) if by else None
+        written = []
         if plot is not None:
             from ..plots import posterior_lift_plot
 
-            posterior_lift_plot(loaded.record, result, plot, settings.prior)
+            written.append(posterior_lift_plot(loaded.record, result, plot, settings.prior))
+        if forest is not None and segments is not None:
+            from ..plots import segment_forest_plot
+
+            for c in result.comparisons:
+                target = forest.with_name(f"{forest.stem}-{c.arm}{forest.suffix or '.svg'}")
+                written.append(segment_forest_plot(segments, c.arm, target))
     if fmt is MemoFormat.json:
-        sys.stdout.write(json.dumps(result.to_dict(), indent=2, ensure_ascii=False) + "\n")
+        data = result.to_dict()
+        data["segments"] = segments.to_dict() if segments is not None else None
+        sys.stdout.write(json.dumps(data, indent=2, ensure_ascii=False) + "\n")
     elif fmt is MemoFormat.markdown:
-        sys.stdout.write(render_markdown(build_memo(result)))
+        sys.stdout.write(render_markdown(build_memo(result, segments)))
     else:
-        render_terminal(build_memo(result), out)
-    if plot is not None:
-        err.print(f"plot written to {plot}", markup=False)
+        render_terminal(build_memo(result, segments), out)
+    for path in written:
+        err.print(f"plot written to {path}", markup=False)
 
 
 def _record_path(record_id: str | None, file: Path | None, records: Path) -> Path:

@@ -119,3 +119,37 @@ def equivalence_test(x_t: int, n_t: int, x_c: int, n_c: int, margin: float, alph
     p_high = float(stats.norm.cdf((log_rr - math.log(1 + margin)) / se))
     p = max(p_low, p_high)
     return Equivalence(margin, p, p < alpha, alpha)
+
+
+@dataclass(frozen=True)
+class PooledRiskRatio:
+    """Mantel-Haenszel risk ratio over strata, with the Greenland & Robins (1985) variance of its log."""
+
+    lift: float
+    lift_low: float
+    lift_high: float
+    log_rr: float
+    log_rr_se: float
+
+
+def mantel_haenszel_rr(strata: list[tuple[int, int, int, int]], confidence: float = 0.95) -> PooledRiskRatio | None:
+    """Strata as (x_t, n_t, x_c, n_c). RR_MH = sum(x_t n_c / N) / sum(x_c n_t / N); None when undefined.
+
+    Var(log RR_MH) = sum((n_t n_c (x_t + x_c) - x_t x_c N) / N^2) / (sum(x_t n_c / N) sum(x_c n_t / N))
+    (Greenland & Robins 1985, Biometrics 41:55-68; with one stratum it equals the Katz variance)."""
+    num = den = var_num = 0.0
+    for x_t, n_t, x_c, n_c in strata:
+        _check(x_t, n_t, "treatment")
+        _check(x_c, n_c, "control")
+        total = n_t + n_c
+        num += x_t * n_c / total
+        den += x_c * n_t / total
+        var_num += (n_t * n_c * (x_t + x_c) - x_t * x_c * total) / total**2
+    if num <= 0 or den <= 0:
+        return None
+    log_rr = math.log(num / den)
+    se = math.sqrt(var_num / (num * den))
+    z = float(stats.norm.ppf(0.5 + confidence / 2))
+    return PooledRiskRatio(
+        math.exp(log_rr) - 1, math.exp(log_rr - z * se) - 1, math.exp(log_rr + z * se) - 1, log_rr, se
+    )
