@@ -198,7 +198,9 @@ def test_cli_analyze_formats_and_plot(tmp_path: Path) -> None:
         "comparisons",
         "recommendation",
         "settings",
+        "segments",
     }
+    assert data["segments"] is None  # present, empty, without --by
     assert data["comparisons"][0]["revenue"]["bootstrap"]["replicates"] == 200
     plot = tmp_path / "lift.svg"
     result = runner.invoke(app, ["analyze", "--file", str(path), "--format", "markdown", "--plot", str(plot)])

@@ -226,3 +226,21 @@ def test_cli_by_dimension(tmp_path: Path) -> None:
     result = runner.invoke(app, ["analyze", "seg", "--records", str(tmp_path), "--by", "browser"])
     assert result.exit_code == 2 and "no segments by browser" in result.stderr
     assert not math.isnan(data["segments"]["dimensions"][0]["rows"][0]["p_adjusted"])
+
+
+def test_every_segment_json_key_is_documented() -> None:
+    import re
+
+    from tests.test_analysis import _keys
+
+    r = seg_record(
+        {
+            "device": {
+                "desktop": {"control": (2000, 80), "b": (2000, 96)},
+                "mobile": {"control": (3000, 60), "b": (3000, 54)},
+            }
+        }
+    )
+    data = analyze_segments(r, ["device"]).to_dict()
+    doc = (Path(__file__).resolve().parents[1] / "site" / "reference" / "analysis-json.md").read_text()
+    assert _keys(data) - set(re.findall(r"`([a-z_]+)`", doc)) == set()
