@@ -96,7 +96,7 @@ def build_memo(a: Analysis, segments: SegmentAnalysis | None = None) -> Memo:
                 "" if c is None else pvalue(c.p_holm),
                 "" if c is None else prob(c.prob_beat_control),
                 prob(arm.prob_best),
-                pct(arm.expected_loss, 3),
+                f"{arm.expected_loss * 100:.3f} pp",
                 "" if c is None else c.verdict,
             ]
         )
@@ -114,7 +114,7 @@ def build_memo(a: Analysis, segments: SegmentAnalysis | None = None) -> Memo:
                     "Holm p",
                     "P(beats control)",
                     "P(best)",
-                    "expected loss",
+                    "expected loss (rate points)",
                     "verdict",
                 ],
                 rows,

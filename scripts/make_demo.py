@@ -255,7 +255,7 @@ IDEAS_YAML = r"""
   insight: A lower free delivery threshold pulled the average order value down as baskets stopped at the new
     threshold; margin after delivery cost is the number to watch.
   tags: [free-delivery, delivery-cost]
-  aov: {threshold-50: -0.03, threshold-45: -0.06}
+  aov: {threshold-50: -0.05, threshold-45: -0.18}
   followup:
     kind: reduce
     slug: free-delivery-threshold-confirmation
