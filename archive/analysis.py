@@ -16,6 +16,7 @@ import numpy as np
 from .orders import Orders
 from .record import Arm, Record
 from .stats import bayes
+from .stats.multiple import holm
 from .stats.power import visitors_per_arm
 from .stats.proportions import compare_rates, equivalence_test
 from .stats.revenue import (
@@ -198,16 +199,13 @@ def analyze(record: Record, orders: Orders | None = None, settings: Settings | N
         compare_rates(_i(t.conversions), _i(t.visitors), _i(control.conversions), _i(control.visitors), s.confidence)
         for t in treatments
     ]
-    from statsmodels.stats.multitest import multipletests
-
-    raw_p = [r.p_value for r in rates]
-    holm = list(multipletests(raw_p, method="holm")[1]) if raw_p else []
+    holm_p = list(holm([r.p_value for r in rates]))
     margin = s.margin or (record.plan.minimum_lift if record.plan and record.plan.minimum_lift else None)
     margin = margin if margin and margin < 1 else s.rules.default_margin
     revenue = _revenue(control, treatments, orders, s)
     post_by_name = {a.name: p for a, p in zip(arms, posteriors, strict=True)}
     comparisons = []
-    for t, r, p_h in zip(treatments, rates, holm, strict=True):
+    for t, r, p_h in zip(treatments, rates, holm_p, strict=True):
         post_t, post_c = post_by_name[t.name], post_by_name[control.name]
         beat = bayes.prob_greater(post_t, post_c)
         c_low, c_high = bayes.lift_interval(post_t, post_c, s.confidence)

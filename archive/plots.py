@@ -8,6 +8,7 @@ import numpy as np
 
 from .analysis import Analysis
 from .files import write_replace
+from .pooling import GroupResult, PoolResult
 from .record import Record
 from .segments import SegmentAnalysis
 from .stats import bayes
@@ -102,6 +103,64 @@ def segment_forest_plot(segments: SegmentAnalysis, arm: str, path: Path) -> Path
     ax.set_yticks(range(len(points)), list(reversed(labels)), fontsize=8)
     ax.set_xlabel(f"relative lift of {arm} against control (%), 95% CI")
     ax.set_title(f"{segments.id}: {arm} by segment", fontsize=9)
+    ax.spines[["top", "right"]].set_visible(False)
+    fig.tight_layout()
+    return save_figure(fig, path)
+
+
+def group_forest_plot(group: GroupResult, path: Path, title: str = "") -> Path:
+    """One group's tests with their 95% CIs, the pooled diamond and the prediction interval."""
+    plt = _pyplot()
+    rows = group.members
+    fig, ax = plt.subplots(figsize=(7.5, 0.32 * len(rows) + 1.8), dpi=100)
+    n = len(rows)
+    for i, m in enumerate(rows):
+        y = n + 1 - i
+        ax.plot([m.low * 100, m.high * 100], [y, y], color=PALETTE[0], lw=1.2)
+        ax.plot([m.lift * 100], [y], "s", color=PALETTE[0], ms=4)
+        ax.plot([m.shrunk_lift * 100], [y], "o", mfc="none", mec=PALETTE[1], ms=5)
+    low, mid, high = group.lift_low * 100, group.lift * 100, group.lift_high * 100
+    ax.fill([low, mid, high, mid], [0, 0.3, 0, -0.3], color="#333333")
+    if group.prediction_low is not None and group.prediction_high is not None:
+        ax.plot([group.prediction_low * 100, group.prediction_high * 100], [-0.8, -0.8], color=PALETTE[1], lw=2.5)
+    labels = [f"{m.record_id} · {m.arm}" for m in rows]
+    ax.set_yticks([*range(n + 1, 1, -1), 0, -0.8], [*labels, "pooled (95% CI)", "next test (95% PI)"], fontsize=7)
+    ax.axvline(0, color="#333333", lw=0.8, ls="--")
+    ax.set_xlabel("relative lift in conversion (%): squares observed, circles shrunk toward the group")
+    ax.set_title(title or f"{group.key}: {group.comparisons} comparisons", fontsize=9)
+    ax.spines[["top", "right"]].set_visible(False)
+    fig.tight_layout()
+    return save_figure(fig, path)
+
+
+def funnel_plot(result: PoolResult, path: Path) -> Path:
+    """Each comparison's log lift against its standard error, with the 95% funnel around the pooled effect."""
+    plt = _pyplot()
+    seen: set[tuple[str, str]] = set()
+    xs, ses = [], []
+    for g in result.groups:
+        for m in g.members:
+            if (m.record_id, m.arm) in seen:
+                continue
+            seen.add((m.record_id, m.arm))
+            xs.append(np.log1p(m.lift))
+            ses.append((np.log1p(m.high) - np.log1p(m.low)) / (2 * 1.959963984540054))
+    x, se = np.array(xs), np.array(ses)
+    centre = float(np.sum(x / se**2) / np.sum(1 / se**2)) if len(x) else 0.0
+    fig, ax = plt.subplots(figsize=(6.5, 4.2), dpi=100)
+    ax.scatter(x * 100, se, s=14, color=PALETTE[0], alpha=0.8)
+    top = float(se.max()) * 1.05 if len(se) else 1.0
+    grid = np.linspace(0, top, 50)
+    ax.plot((centre - 1.96 * grid) * 100, grid, color="#777777", lw=0.8)
+    ax.plot((centre + 1.96 * grid) * 100, grid, color="#777777", lw=0.8)
+    ax.axvline(centre * 100, color="#333333", lw=0.8, ls="--")
+    ax.invert_yaxis()
+    ax.set_xlabel("log lift in conversion (x100)")
+    ax.set_ylabel("standard error (larger tests at the top)")
+    title = "funnel: a lopsided cloud hints at selective filing"
+    if result.egger is not None:
+        title += f" (Egger p {result.egger.p_value:.2g})"
+    ax.set_title(title, fontsize=9)
     ax.spines[["top", "right"]].set_visible(False)
     fig.tight_layout()
     return save_figure(fig, path)

@@ -29,6 +29,7 @@ from typing import Any, Literal
 from .analysis import Settings, json_safe
 from .record import Record
 from .stats.meta import heterogeneity, interaction_test
+from .stats.multiple import benjamini_hochberg, holm
 from .stats.proportions import compare_rates, log_risk_ratio, mantel_haenszel_rr
 from .stats.srm import sample_ratio_test
 
@@ -312,8 +313,7 @@ def _mix_check(record: Record, dim: str, arm: str, s: Settings) -> MixCheck:
 def _adjust(rows: list[SegmentRow], adjust: Adjustment) -> None:
     if not rows:
         return
-    from statsmodels.stats.multitest import multipletests
-
-    adjusted = multipletests([r.p_value for r in rows], method="fdr_bh" if adjust == "bh" else "holm")[1]
+    raw = [r.p_value for r in rows]
+    adjusted = benjamini_hochberg(raw) if adjust == "bh" else holm(raw)
     for row, p in zip(rows, adjusted, strict=True):
         row.p_adjusted = float(p)

@@ -299,3 +299,63 @@ def test_sample_size_fleiss(p1: float, p2: float, power: float, ratio: float, pl
 def test_sample_size_rejects_equal_rates() -> None:
     with pytest.raises(ValueError):
         visitors_per_arm(0.03, 0.03)
+
+
+# --- multiple comparisons -------------------------------------------------------------------------------
+
+MULTTEST1_RAW = [
+    5.23656777208e-05,
+    0.00028140506198,
+    0.0149877310796,
+    0.0202732688798,
+    0.177096952723,
+    0.642193923795,
+    0.680845947633,
+    0.71626938238,
+    0.838541367553,
+    0.967833824309,
+]
+
+
+def test_holm_matches_r_multtest() -> None:
+    from archive.stats.multiple import holm
+
+    # R multtest mt.rawp2adjp, statsmodels test_multi.py res_multtest1 (Holm column)
+    expected = [5.2365677720800005e-04, 2.5326455578199999e-03, 1.1990184863680001e-01, 1.4191288215860001e-01]
+    assert holm(MULTTEST1_RAW) == pytest.approx(expected + [1.0] * 6, rel=1e-12)
+    # res_multtest3: Holm 0.01, 0.018, 0.024, 0.028, 0.03, 0.25 x5
+    raw3 = [0.001, 0.002, 0.003, 0.004, 0.005, 0.05, 0.06, 0.07, 0.08, 0.09]
+    assert holm(raw3) == pytest.approx([0.01, 0.018, 0.024, 0.028, 0.03] + [0.25] * 5, rel=1e-12)
+
+
+def test_bh_matches_r_multtest_and_is_order_free() -> None:
+    from archive.stats.multiple import benjamini_hochberg
+
+    # R multtest via statsmodels res_multtest1 (BH column)
+    expected = [
+        5.2365677720800005e-04,
+        1.4070253098999999e-03,
+        4.9959103598666670e-02,
+        5.0683172199499998e-02,
+        3.5419390544599999e-01,
+        8.9533672797500008e-01,
+        8.9533672797500008e-01,
+        8.9533672797500008e-01,
+        9.3171263061444454e-01,
+        9.6783382430900000e-01,
+    ]
+    assert benjamini_hochberg(MULTTEST1_RAW) == pytest.approx(expected, rel=1e-12)
+    shuffled = [MULTTEST1_RAW[i] for i in (3, 0, 9, 5, 1, 8, 2, 7, 4, 6)]
+    assert benjamini_hochberg(shuffled) == pytest.approx([expected[i] for i in (3, 0, 9, 5, 1, 8, 2, 7, 4, 6)])
+
+
+def test_adjustments_agree_with_statsmodels() -> None:
+    from statsmodels.stats.multitest import multipletests
+
+    from archive.stats.multiple import benjamini_hochberg, holm
+
+    p = np.random.default_rng(9).uniform(size=40) ** 3
+    assert holm(p) == pytest.approx(multipletests(p, method="holm")[1], rel=1e-12)
+    assert benjamini_hochberg(p) == pytest.approx(multipletests(p, method="fdr_bh")[1], rel=1e-12)
+    with pytest.raises(ValueError):
+        holm([0.2, 1.5])

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import typer
 
-from . import analyze, catalog, records
+from . import analyze, catalog, pool, records
 
 app = typer.Typer(
     name="archive",
@@ -21,6 +21,7 @@ app.command("list")(catalog.list_tests)
 app.command("search")(catalog.search)
 app.command("show")(catalog.show)
 app.command("analyze")(analyze.analyze)
+app.command("pool")(pool.pool)
 
 
 def main() -> None:

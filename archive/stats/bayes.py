@@ -166,26 +166,44 @@ def expected_loss(posteriors: Sequence[BetaPosterior]) -> np.ndarray:
     return np.maximum(0.0, best - np.array([p.mean for p in posteriors]))
 
 
-def lift_cdf(treatment: BetaPosterior, control: BetaPosterior, lift: float) -> float:
-    """P(p_t / p_c - 1 <= lift) = integral of f_c(x) F_t((1 + lift) x) dx."""
+def _lift_cdf_function(treatment: BetaPosterior, control: BetaPosterior):  # type: ignore[no-untyped-def]
+    """r -> P(p_t / p_c - 1 <= r) = integral of f_c(x) F_t((1 + r) x) dx, on a grid computed once."""
     nodes, weights = _grid([control])
-    pdf = _pdfs([control], nodes)[0]
-    scaled = np.clip((1 + lift) * nodes, 0.0, 1.0)
-    cdf_t = special.betainc(treatment.alpha, treatment.beta, scaled)
-    return float(np.clip((pdf * cdf_t) @ weights, 0.0, 1.0))
+    weighted_pdf = _pdfs([control], nodes)[0] * weights
+
+    def cdf(lift: float) -> float:
+        scaled = np.clip((1 + lift) * nodes, 0.0, 1.0)
+        return float(np.clip(special.betainc(treatment.alpha, treatment.beta, scaled) @ weighted_pdf, 0.0, 1.0))
+
+    return cdf
+
+
+def lift_cdf(treatment: BetaPosterior, control: BetaPosterior, lift: float) -> float:
+    """P(p_t / p_c - 1 <= lift)."""
+    return float(_lift_cdf_function(treatment, control)(lift))
 
 
 def lift_interval(treatment: BetaPosterior, control: BetaPosterior, level: float = 0.95) -> tuple[float, float]:
     """Equal-tailed credible interval of the relative lift p_t / p_c - 1."""
     tail = (1 - level) / 2
+    cdf = _lift_cdf_function(treatment, control)
+    # start the bracket from the normal approximation of the log ratio, then widen until it holds the root
+    centre = math.log(treatment.mean / control.mean)
+    spread = math.sqrt(
+        treatment.beta / (treatment.alpha * (treatment.alpha + treatment.beta + 1))
+        + control.beta / (control.alpha * (control.alpha + control.beta + 1))
+    )
 
     def solve(target: float) -> float:
-        lo, hi = -1.0 + 1e-12, 1.0
-        while lift_cdf(treatment, control, hi) < target:
+        lo = max(-1.0 + 1e-12, math.expm1(centre - 8 * spread))
+        hi = math.expm1(centre + 8 * spread)
+        while cdf(lo) > target and lo > -1.0 + 1e-12:
+            lo = -1.0 + (lo + 1.0) / 10
+        while cdf(hi) < target:
             hi = hi * 2 + 1
             if hi > 1e9:
                 return math.inf
-        return float(optimize.brentq(lambda r: lift_cdf(treatment, control, r) - target, lo, hi, xtol=1e-9))
+        return float(optimize.brentq(lambda r: cdf(r) - target, lo, hi, xtol=1e-10, rtol=1e-10))
 
     return solve(tail), solve(1 - tail)
 

@@ -1,0 +1,444 @@
+"""Pooling the archive: which kinds of changes tend to win, by how much, how often, and how sure we are.
+
+``pool(effects, by)`` groups the comparisons (see :mod:`archive.effects`) and, per group, runs a random-effects
+meta-analysis of the log risk ratios: REML tau^2 with the Hartung-Knapp-Sidik-Jonkman interval by default
+(Cochrane's current guidance), DerSimonian-Laird shown as the classic comparison; the prediction interval for
+the next test of that kind follows Higgins, Thompson & Spiegelhalter (2009): t with k-2 df. Groups with fewer
+than ``MIN_GROUP`` comparisons are kept and flagged. Win rates get Jeffreys intervals and empirical-Bayes
+(beta-binomial) shrinkage across groups; the programme's false positive risk follows Kohavi & Chen (2024).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from collections import defaultdict
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+from scipy import optimize, special, stats
+
+from .analysis import json_safe
+from .effects import Effect
+from .stats.meta import heterogeneity, random_effects
+
+MIN_GROUP = 5  # fewer comparisons than this: shown with a warning (common practice for random-effects pooling)
+GROUPINGS = ("theme", "page_area", "theme,page_area", "tag", "year", "segment")
+
+
+def group_keys(effect: Effect, by: str) -> list[str]:
+    """The groups an effect belongs to (a test with two themes counts in both theme groups)."""
+    if by == "theme":
+        return list(dict.fromkeys(effect.themes))
+    if by == "page_area":
+        return [effect.page_area]
+    if by == "theme,page_area":
+        return [f"{t} / {effect.page_area}" for t in dict.fromkeys(effect.themes)]
+    if by == "tag":
+        return list(dict.fromkeys(effect.tags))
+    if by == "year":
+        return [effect.year]
+    if by == "segment":
+        return [effect.segment] if effect.segment else []
+    raise ValueError(f"unknown grouping {by!r}; use one of {', '.join(GROUPINGS)}")
+
+
+@dataclass
+class Rate:
+    count: int
+    total: int
+    rate: float | None
+    low: float | None  # Jeffreys interval
+    high: float | None
+    shrunk: float | None = None  # empirical-Bayes (beta-binomial) estimate across groups
+
+
+def jeffreys(count: int, total: int, level: float = 0.95) -> Rate:
+    """Jeffreys interval: quantiles of Beta(x + 1/2, n - x + 1/2) (Brown, Cai & DasGupta 2001), with the usual
+    convention of 0 / 1 at the ends."""
+    if total == 0:
+        return Rate(0, 0, None, None, None)
+    tail = (1 - level) / 2
+    low = 0.0 if count == 0 else float(special.betaincinv(count + 0.5, total - count + 0.5, tail))
+    high = 1.0 if count == total else float(special.betaincinv(count + 0.5, total - count + 0.5, 1 - tail))
+    return Rate(count, total, count / total, low, high)
+
+
+def beta_binomial_fit(counts: list[int], totals: list[int]) -> tuple[float, float] | None:
+    """Maximum marginal likelihood Beta(a, b) for rates x_g / n_g (empirical Bayes); None if it cannot be fitted."""
+    x, n = np.asarray(counts, float), np.asarray(totals, float)
+    keep = n > 0
+    x, n = x[keep], n[keep]
+    if len(x) < 2 or x.sum() == 0 or x.sum() == n.sum():
+        return None
+
+    def negative(params: np.ndarray) -> float:
+        a, b = np.exp(params)
+        return -float(np.sum(stats.betabinom.logpmf(x, n, a, b)))
+
+    mean = x.sum() / n.sum()
+    start = np.log([mean * 10, (1 - mean) * 10])
+    result = optimize.minimize(negative, start, method="Nelder-Mead", options={"xatol": 1e-8, "fatol": 1e-10})
+    a, b = np.exp(result.x)
+    return (float(a), float(b)) if math.isfinite(a) and math.isfinite(b) else None
+
+
+@dataclass
+class Member:
+    record_id: str
+    arm: str
+    lift: float
+    low: float
+    high: float
+    shrunk_lift: float  # empirical-Bayes posterior mean, shrunk toward the group
+    verdict: str
+    shipped: bool
+
+
+@dataclass
+class GroupResult:
+    key: str
+    comparisons: int
+    tests: int
+    lift: float
+    lift_low: float
+    lift_high: float
+    p_value: float
+    tau2: float
+    tau2_low: float | None
+    tau2_high: float | None
+    i_squared: float
+    q: float
+    q_p_value: float | None
+    prediction_low: float | None
+    prediction_high: float | None
+    dl_lift: float
+    dl_low: float
+    dl_high: float
+    dl_tau2: float
+    wins: Rate
+    shipped: Rate
+    warning: str | None
+    members: list[Member] = field(default_factory=list)
+
+
+@dataclass
+class Programme:
+    comparisons: int
+    win_rate: Rate
+    alpha: float
+    assumed_power: float
+    true_success_rate: float | None  # Kohavi & Chen (2024): (w - alpha/2) / (power - alpha/2)
+    false_positive_risk: float | None  # (alpha/2)(1 - pi) / w
+    shipped: int
+    shipped_mean_observed_lift: float | None
+    shipped_mean_shrunk_lift: float | None
+    overstatement: float | None  # observed / shrunk, mean over shipped comparisons
+    lee_shen_bias: float | None  # expected excess of the summed shipped log-lifts (Lee & Shen 2018)
+    summed_shipped_log_lift: float | None
+
+
+@dataclass
+class BetweenGroups:
+    q: float
+    df: int
+    p_value: float | None
+
+
+@dataclass
+class MetaRegression:
+    moderator: str
+    slope: float
+    se: float
+    p_value: float
+    permutation_p_value: float | None
+    permutations: int
+    tau2_residual: float
+    k: int
+
+
+@dataclass
+class Egger:
+    intercept: float
+    se: float
+    p_value: float
+    k: int
+    warning: str | None
+
+
+@dataclass
+class PoolResult:
+    by: str
+    method: str
+    interval: str
+    prediction_convention: str
+    ranking: str
+    groups: list[GroupResult]
+    excluded: list[str]
+    split_controls: list[str]
+    programme: Programme
+    between_groups: BetweenGroups | None
+    meta_regression: MetaRegression | None
+    egger: Egger | None
+    assumptions: list[str]
+
+    def to_dict(self) -> dict[str, Any]:
+        return json_safe(dataclasses.asdict(self))  # type: ignore[no-any-return]
+
+
+def pool(
+    effects: list[Effect],
+    by: str = "theme",
+    method: str = "REML",
+    hksj: bool = True,
+    include_untrusted: bool = False,
+    alpha: float = 0.05,
+    assumed_power: float = 0.8,
+    keys: Callable[[Effect], list[str]] | None = None,
+    permutations: int = 1000,
+    seed: int = 0,
+) -> PoolResult:
+    """Pool effects by group. ``keys`` overrides the grouping (it must return the groups of an effect)."""
+    if method not in ("REML", "DL", "PM"):
+        raise ValueError("method is REML, PM or DL")
+    key_of = keys or (lambda e: group_keys(e, by))
+    excluded = sorted({e.record_id for e in effects if not e.trusted}) if not include_untrusted else []
+    used = [e for e in effects if include_untrusted or e.trusted]
+    split = sorted({f"{e.record_id} (control split {e.control_share} ways)" for e in used if e.control_share > 1})
+    members: dict[str, list[Effect]] = defaultdict(list)
+    for e in used:
+        for key in key_of(e):
+            members[key].append(e)
+    groups = [_group(key, items, method, hksj) for key, items in members.items()]
+    _shrink_rates(groups)
+    groups.sort(key=lambda g: (-g.lift_low, g.key))
+    return PoolResult(
+        by=by,
+        method=f"{method} tau^2"
+        + (", Hartung-Knapp-Sidik-Jonkman interval (t, k-1 df)" if hksj else ", normal interval"),
+        interval="95% confidence interval of the mean relative lift of the group's tests",
+        prediction_convention="95% prediction interval for the true lift of a new test of the kind: Higgins, "
+        "Thompson & Spiegelhalter (2009), mean +/- t(k-2) sqrt(tau^2 + SE^2)",
+        ranking="ranked by the lower end of the 95% interval of the pooled lift, never by the point estimate alone",
+        groups=groups,
+        excluded=excluded,
+        split_controls=split,
+        programme=_programme(used, groups, alpha, assumed_power),
+        between_groups=_between(groups),
+        meta_regression=meta_regression_by_date(used, permutations, seed),
+        egger=egger_test(used),
+        assumptions=[
+            "Each comparison is an independent estimate: visitors are independent and each test ran to a fixed "
+            "horizon.",
+            "A shared control is split evenly across its comparisons (Cochrane Handbook, studies with more than two "
+            "intervention groups); the comparisons stay somewhat correlated.",
+            f"Win rates count verdicts of the per-test analysis; the false positive risk assumes two-sided alpha "
+            f"{alpha:g} and power {assumed_power:.0%} at the true effects (an assumption, not a measurement).",
+            "Tests that failed a trust check are left out"
+            + ("" if not include_untrusted else " (here: included)")
+            + ".",
+        ],
+    )
+
+
+def _group(key: str, items: list[Effect], method: str, hksj: bool) -> GroupResult:
+    y = np.array([e.log_rr for e in items])
+    v = np.array([e.variance for e in items])
+    re = random_effects(y, v, method, hksj=hksj)  # type: ignore[arg-type]
+    dl = random_effects(y, v, "DL", hksj=False)
+    z = float(stats.norm.ppf(0.975))
+    shrink = 0.0 if re.tau2 == 0 else None
+    members = []
+    for e in items:
+        weight = shrink if shrink is not None else (1 / e.variance) / (1 / e.variance + 1 / re.tau2)
+        posterior = weight * e.log_rr + (1 - weight) * re.mean
+        members.append(
+            Member(
+                e.record_id,
+                e.arm,
+                e.lift,
+                math.exp(e.log_rr - z * e.se) - 1,
+                math.exp(e.log_rr + z * e.se) - 1,
+                math.exp(posterior) - 1,
+                e.verdict,
+                e.shipped,
+            )
+        )
+    k = len(items)
+    tests = len({e.record_id for e in items})
+    warning = None if k >= MIN_GROUP else f"only {k} comparison(s): the pooled figures are fragile"
+    exp = math.exp
+    return GroupResult(
+        key=key,
+        comparisons=k,
+        tests=tests,
+        lift=exp(re.mean) - 1,
+        lift_low=exp(re.low) - 1,
+        lift_high=exp(re.high) - 1,
+        p_value=re.p_value,
+        tau2=re.tau2,
+        tau2_low=re.tau2_low,
+        tau2_high=re.tau2_high,
+        i_squared=re.i_squared,
+        q=re.q,
+        q_p_value=re.q_p_value,
+        prediction_low=None if re.prediction_low is None else exp(re.prediction_low) - 1,
+        prediction_high=None if re.prediction_high is None else exp(re.prediction_high) - 1,
+        dl_lift=exp(dl.mean) - 1,
+        dl_low=exp(dl.low) - 1,
+        dl_high=exp(dl.high) - 1,
+        dl_tau2=dl.tau2,
+        wins=jeffreys(sum(e.verdict == "winner" for e in items), k),
+        shipped=jeffreys(sum(e.shipped for e in items), k),
+        warning=warning,
+        members=sorted(members, key=lambda m: (m.record_id, m.arm)),
+    )
+
+
+def _shrink_rates(groups: list[GroupResult]) -> None:
+    for attribute in ("wins", "shipped"):
+        rates: list[Rate] = [getattr(g, attribute) for g in groups]
+        fit = beta_binomial_fit([r.count for r in rates], [r.total for r in rates])
+        for r in rates:
+            if fit is not None and r.total:
+                a, b = fit
+                r.shrunk = (r.count + a) / (r.total + a + b)
+            else:
+                r.shrunk = r.rate
+
+
+def false_positive_risk(win_rate: float, alpha: float, power: float) -> tuple[float, float] | None:
+    """Kohavi & Chen (2024): true success rate pi = (w - alpha/2) / (power - alpha/2), clipped to [0, 1], and
+    the false positive risk of a winner FPR = (alpha/2)(1 - pi) / w. None when w is 0."""
+    if not 0 < alpha < 1 or not 0 < power <= 1:
+        raise ValueError("alpha in (0, 1), power in (0, 1]")
+    if win_rate <= 0:
+        return None
+    pi = min(1.0, max(0.0, (win_rate - alpha / 2) / (power - alpha / 2)))
+    return pi, min(1.0, (alpha / 2) * (1 - pi) / win_rate)
+
+
+def fpr_from_prior(pi: float, alpha: float, power: float) -> float:
+    """Kohavi, Deng & Vermeer (2022): FPR = (alpha/2)(1 - pi) / ((alpha/2)(1 - pi) + power pi)."""
+    return (alpha / 2) * (1 - pi) / ((alpha / 2) * (1 - pi) + power * pi)
+
+
+def lee_shen_bias(true_effects: np.ndarray, ses: np.ndarray, z: float = 1.959963984540054) -> float:
+    """Lee & Shen (2018): expected excess of the summed estimates of shipped changes over their true effects,
+    sum_i sigma_i phi((sigma_i b - a_i) / sigma_i), for X_i ~ N(a_i, sigma_i^2) shipped when X_i > b sigma_i."""
+    return float(np.sum(ses * stats.norm.pdf((ses * z - true_effects) / ses)))
+
+
+def _programme(used: list[Effect], groups: list[GroupResult], alpha: float, power: float) -> Programme:
+    wins = sum(e.verdict == "winner" for e in used)
+    rate = jeffreys(wins, len(used))
+    implied = false_positive_risk(rate.rate or 0.0, alpha, power) if used else None
+    shrunk = {(m.record_id, m.arm): m.shrunk_lift for g in groups for m in g.members}
+    shipped = [e for e in used if e.shipped]
+    mean_obs = mean_shrunk = over = bias = summed = None
+    if shipped:
+        observed = np.array([e.lift for e in shipped])
+        shrunk_lifts = np.array([shrunk.get((e.record_id, e.arm), e.lift) for e in shipped])
+        mean_obs, mean_shrunk = float(observed.mean()), float(shrunk_lifts.mean())
+        over = mean_obs / mean_shrunk if mean_shrunk > 0 else None
+        bias = lee_shen_bias(np.log1p(shrunk_lifts), np.array([e.se for e in shipped]))
+        summed = float(np.sum([e.log_rr for e in shipped]))
+    return Programme(
+        len(used),
+        rate,
+        alpha,
+        power,
+        implied[0] if implied else None,
+        implied[1] if implied else None,
+        len(shipped),
+        mean_obs,
+        mean_shrunk,
+        over,
+        bias,
+        summed,
+    )
+
+
+def _between(groups: list[GroupResult]) -> BetweenGroups | None:
+    """Test for subgroup differences: Cochran's Q across the groups' pooled estimates (random-effects SEs)."""
+    usable = [g for g in groups if g.comparisons >= 2]
+    if len(usable) < 2:
+        return None
+    y = np.array([math.log1p(g.lift) for g in usable])
+    se = np.array([(math.log1p(g.lift_high) - math.log1p(g.lift_low)) / (2 * 1.959963984540054) for g in usable])
+    het = heterogeneity(y, se**2)
+    return BetweenGroups(het.q, het.df, het.p_value)
+
+
+def meta_regression_by_date(effects: list[Effect], permutations: int = 1000, seed: int = 0) -> MetaRegression | None:
+    """Random-effects meta-regression of log RR on start date (years), method-of-moments residual tau^2
+    (DerSimonian-Laird extended to regression), z-test of the slope and a permutation p-value (Higgins &
+    Thompson 2004 recommend permutation when k is small)."""
+    dated = [e for e in effects if e.started is not None]
+    if len(dated) < 4:
+        return None
+    first = min(e.started for e in dated if e.started)
+    x = np.array([(e.started - first).days / 365.25 for e in dated if e.started])
+    y = np.array([e.log_rr for e in dated])
+    v = np.array([e.variance for e in dated])
+    if np.ptp(x) == 0:
+        return None
+    slope, se, tau2 = _wls_slope(x, y, v)
+    z = slope / se
+    p = float(2 * stats.norm.sf(abs(z)))
+    perm_p = None
+    if permutations:
+        rng = np.random.default_rng(seed)
+        hits = 0
+        for _ in range(permutations):
+            s_p, se_p, _ = _wls_slope(rng.permutation(x), y, v)
+            hits += abs(s_p / se_p) >= abs(z)
+        perm_p = (hits + 1) / (permutations + 1)
+    return MetaRegression("start date (years)", slope, se, p, perm_p, permutations, tau2, len(dated))
+
+
+def _wls_slope(x: np.ndarray, y: np.ndarray, v: np.ndarray) -> tuple[float, float, float]:
+    design = np.column_stack([np.ones_like(x), x])
+    w = 1 / v
+    xtwx = design.T @ (design * w[:, None])
+    beta = np.linalg.solve(xtwx, design.T @ (w * y))
+    resid = y - design @ beta
+    q_e = float(np.sum(w * resid**2))
+    inv = np.linalg.inv(xtwx)
+    trace = np.sum(w) - np.trace(inv @ (design.T @ (design * (w**2)[:, None])))
+    tau2 = max(0.0, (q_e - (len(y) - 2)) / trace) if trace > 0 else 0.0
+    w2 = 1 / (v + tau2)
+    xtwx2 = design.T @ (design * w2[:, None])
+    beta2 = np.linalg.solve(xtwx2, design.T @ (w2 * y))
+    cov = np.linalg.inv(xtwx2)
+    return float(beta2[1]), float(math.sqrt(cov[1, 1])), tau2
+
+
+def egger_test(effects: list[Effect]) -> Egger | None:
+    """Egger et al. (1997): regress y/se on 1/se; an intercept away from 0 signals small-study effects, e.g. an
+    archive that files its winners and forgets its losers."""
+    if len(effects) < 3:
+        return None
+    y = np.array([e.log_rr for e in effects])
+    se = np.array([e.se for e in effects])
+    if np.ptp(1 / se) <= 1e-12 * np.max(1 / se):
+        return None  # every test equally precise: there is no small-study axis to regress on
+    design = np.column_stack([np.ones_like(se), 1 / se])
+    target = y / se
+    beta, *_ = np.linalg.lstsq(design, target, rcond=None)
+    resid = target - design @ beta
+    df = len(y) - 2
+    sigma2 = float(resid @ resid / df)
+    cov = sigma2 * np.linalg.inv(design.T @ design)
+    se_int = float(math.sqrt(cov[0, 0]))
+    t = beta[0] / se_int
+    p = float(2 * stats.t.sf(abs(t), df))
+    warning = None
+    if p < 0.10:  # common practice: Egger's test is read at 0.10 because it has little power
+        warning = (
+            "small tests show larger lifts than big ones (Egger p < 0.10): the archive may hold mostly the tests "
+            "that won, or small tests were stopped when they looked good"
+        )
+    return Egger(float(beta[0]), se_int, p, len(y), warning)

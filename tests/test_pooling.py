@@ -1,0 +1,274 @@
+"""Pooling the archive: effects, splitting rule, programme formulas, shrinkage and recovery of known effects."""
+
+from __future__ import annotations
+
+import datetime as dt
+import json
+import math
+import sys
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pytest
+from scipy import stats
+from typer.testing import CliRunner
+
+from archive.analysis import Settings
+from archive.cli.main import app
+from archive.effects import Effect, log_rr_split, record_effects
+from archive.pooling import (
+    beta_binomial_fit,
+    egger_test,
+    false_positive_risk,
+    fpr_from_prior,
+    jeffreys,
+    lee_shen_bias,
+    meta_regression_by_date,
+    pool,
+)
+from archive.record import Record
+
+ROOT = Path(__file__).resolve().parents[1]
+runner = CliRunner()
+
+
+def _record(arms: list[tuple[str, int, int]], **extra: Any) -> Record:
+    return Record.model_validate(
+        {
+            "id": "multi",
+            "title": "Three arms",
+            "status": "finished",
+            "started": dt.date(2024, 1, 8),
+            "ended": dt.date(2024, 2, 4),
+            "page_area": "basket",
+            "themes": ["shipping-cost"],
+            "hypothesis": "h",
+            "arms": [{"name": n, "control": n == "control", "visitors": v, "conversions": c} for n, v, c in arms],
+            **extra,
+        }
+    )
+
+
+def test_shared_control_is_split_evenly() -> None:
+    # Cochrane Handbook, studies with more than two intervention groups: split the shared control's counts
+    r = _record([("control", 30_000, 900), ("b", 15_000, 480), ("c", 15_000, 420)])
+    effects = record_effects(r)
+    assert [e.control_share for e in effects] == [2, 2]
+    assert sum(e.control_visitors for e in effects) == 30_000
+    b = effects[0]
+    # log RR and the metafor escalc "RR" variance with the halved control: 450 of 15,000
+    assert b.log_rr == pytest.approx(math.log((480 / 15_000) / (450 / 15_000)), rel=1e-12)
+    assert b.variance == pytest.approx(1 / 480 - 1 / 15_000 + 1 / 450 - 1 / 15_000, rel=1e-12)
+
+
+def test_zero_cell_gets_half_added() -> None:
+    log_rr, var, corrected = log_rr_split(0, 200, 4, 210)
+    assert corrected
+    assert log_rr == pytest.approx(math.log((0.5 / 201) / (4.5 / 211)))
+    assert var == pytest.approx(1 / 0.5 - 1 / 201 + 1 / 4.5 - 1 / 211)
+
+
+@pytest.mark.parametrize(("pi", "expected"), [(0.20, 0.111), (0.15, 0.150), (0.10, 0.220)])
+def test_false_positive_risk_from_prior(pi: float, expected: float) -> None:
+    # Kohavi, Deng & Vermeer (2022) formula; values in check-values §11 (computed from it), alpha 0.05, power 0.8
+    assert fpr_from_prior(pi, 0.05, 0.8) == pytest.approx(expected, abs=5e-4)
+
+
+def test_kohavi_chen_worked_case() -> None:
+    # Kohavi & Chen (2024): observed win rate 12% at alpha 0.10 and power 0.8 -> pi about 9.3%, FPR about 37.8%
+    result = false_positive_risk(0.12, 0.10, 0.8)
+    assert result is not None
+    pi, fpr = result
+    assert pi == pytest.approx(0.093, abs=5e-4)
+    assert fpr == pytest.approx(0.378, abs=5e-4)
+    assert false_positive_risk(0.0, 0.05, 0.8) is None
+
+
+def test_jeffreys_matches_statsmodels() -> None:
+    from statsmodels.stats.proportion import proportion_confint
+
+    # statsmodels proportion_confint(method="jeffreys"): Beta(x + 1/2, n - x + 1/2) quantiles
+    r = jeffreys(7, 40)
+    assert (r.low, r.high) == pytest.approx(proportion_confint(7, 40, method="jeffreys"), rel=1e-10)
+    assert jeffreys(0, 10).low == 0.0 and jeffreys(10, 10).high == 1.0
+    assert jeffreys(0, 0).rate is None
+
+
+def test_beta_binomial_shrinkage_recovers_spread() -> None:
+    rng = np.random.default_rng(2)
+    rates = rng.beta(4, 16, size=300)  # invented: true win rates around 20%
+    totals = rng.integers(20, 60, size=300)
+    counts = rng.binomial(totals, rates)
+    fit = beta_binomial_fit(list(counts), list(totals))
+    assert fit is not None
+    a, b = fit
+    assert a / (a + b) == pytest.approx(0.2, abs=0.02)
+    assert a + b == pytest.approx(20, rel=0.5)  # prior strength, loosely (300 groups)
+    assert beta_binomial_fit([0, 0], [10, 12]) is None
+
+
+def test_lee_shen_bias_against_monte_carlo() -> None:
+    # Lee & Shen (2018): E[sum X_i 1{X_i > b s_i}] - sum a_i P(X_i > b s_i) = sum s_i phi((s_i b - a_i) / s_i)
+    a = np.array([0.01, 0.0, -0.01, 0.03, 0.02])
+    s = np.array([0.02, 0.015, 0.03, 0.01, 0.025])
+    rng = np.random.default_rng(8)
+    x = rng.normal(a, s, size=(400_000, 5))
+    shipped = x > 1.959963984540054 * s
+    excess = np.mean(np.sum(np.where(shipped, x - a, 0.0), axis=1))
+    assert lee_shen_bias(a, s) == pytest.approx(excess, rel=0.01)
+
+
+def _effect(log_rr: float, variance: float, started: dt.date | None = None, **kw: Any) -> Effect:
+    base: dict[str, Any] = dict(
+        record_id="r",
+        arm="b",
+        title="t",
+        themes=["x"],
+        page_area="home",
+        tags=[],
+        started=started,
+        log_rr=log_rr,
+        variance=variance,
+        visitors=1000,
+        control_visitors=1000.0,
+        control_share=1,
+        zero_cell_correction=False,
+        verdict="flat",
+        shipped=False,
+        trusted=True,
+    )
+    base.update(kw)
+    return Effect(**base)
+
+
+def test_egger_matches_ols() -> None:
+    import statsmodels.api as sm
+
+    rng = np.random.default_rng(5)
+    se = rng.uniform(0.01, 0.08, 30)
+    y = rng.normal(0.01 + 0.8 * se, se)  # invented small-study effect
+    effects = [_effect(float(a), float(b**2), record_id=f"r{i}") for i, (a, b) in enumerate(zip(y, se, strict=True))]
+    ours = egger_test(effects)
+    # statsmodels OLS of y/se on 1/se: the intercept and its t-test p-value
+    fit = sm.OLS(y / se, sm.add_constant(1 / se)).fit()
+    assert ours is not None
+    assert ours.intercept == pytest.approx(fit.params[0], rel=1e-10)
+    assert ours.p_value == pytest.approx(fit.pvalues[0], rel=1e-8)
+
+
+def test_meta_regression_slope_matches_weighted_least_squares_without_heterogeneity() -> None:
+    import statsmodels.api as sm
+
+    rng = np.random.default_rng(6)
+    days = np.sort(rng.integers(0, 1000, 25))
+    v = rng.uniform(0.0004, 0.001, 25)
+    x = days / 365.25
+    y = rng.normal(0.02 - 0.01 * x, np.sqrt(v))
+    start = dt.date(2023, 1, 2)
+    effects = [
+        _effect(float(a), float(b), start + dt.timedelta(days=int(d)), record_id=f"r{i}")
+        for i, (a, b, d) in enumerate(zip(y, v, days, strict=True))
+    ]
+    result = meta_regression_by_date(effects, permutations=199, seed=1)
+    assert result is not None
+    if result.tau2_residual == 0:
+        # statsmodels WLS with weights 1/v gives the same slope; its SE is rescaled by the residual variance
+        fit = sm.WLS(y, sm.add_constant(x), weights=1 / v).fit()
+        assert result.slope == pytest.approx(fit.params[1], rel=1e-8)
+        assert result.se == pytest.approx(fit.bse[1] / math.sqrt(fit.scale), rel=1e-8)
+    assert result.permutation_p_value is not None and 0 < result.permutation_p_value <= 1
+
+
+def test_groups_below_five_are_kept_with_a_warning() -> None:
+    effects = [_effect(0.01 * i, 0.0004, record_id=f"r{i}", themes=["a"] if i < 6 else ["b"]) for i in range(9)]
+    result = pool(effects, "theme", permutations=0)
+    by_key = {g.key: g for g in result.groups}
+    assert by_key["a"].warning is None and by_key["a"].comparisons == 6
+    assert by_key["b"].comparisons == 3 and by_key["b"].warning is not None
+    assert by_key["b"].prediction_low is not None  # k = 3: t with 1 df
+
+
+def test_untrusted_tests_are_excluded_and_listed() -> None:
+    effects = [_effect(0.02, 0.0004, record_id=f"r{i}") for i in range(5)]
+    effects.append(_effect(0.5, 0.0004, record_id="broken", trusted=False))
+    result = pool(effects, "theme", permutations=0)
+    assert result.excluded == ["broken"] and result.groups[0].comparisons == 5
+    assert pool(effects, "theme", include_untrusted=True, permutations=0).groups[0].comparisons == 6
+
+
+def test_pooled_group_matches_scalar_meta_analysis() -> None:
+    from archive.stats.meta import random_effects
+
+    rng = np.random.default_rng(3)
+    y, v = rng.normal(0.02, 0.03, 12), rng.uniform(0.0003, 0.002, 12)
+    effects = [_effect(float(a), float(b), record_id=f"r{i}") for i, (a, b) in enumerate(zip(y, v, strict=True))]
+    (group,) = pool(effects, "theme", permutations=0).groups
+    reference = random_effects(y, v, "REML", hksj=True)
+    assert group.lift == pytest.approx(math.expm1(reference.mean), rel=1e-10)
+    assert group.tau2 == pytest.approx(reference.tau2, rel=1e-8)
+
+
+def test_recovers_known_theme_effects_over_seeds() -> None:
+    """The demo generator's true theme effects land inside the pooled 95% intervals at about the stated rate."""
+    sys.path.insert(0, str(ROOT / "scripts"))
+    import make_demo  # the seeded demo generator: known true effects per theme
+
+    covered_mean: list[bool] = []
+    covered_tau2: list[bool] = []
+    for seed in range(1, 7):
+        effects = []
+        for t in make_demo.build_archive(seed):
+            if t.status not in ("finished", "stopped-early") or t.idea.get("special"):
+                continue  # planted flaws (SRM, device effects, mix shifts) do not follow the theme truth
+            effects += record_effects(Record.model_validate(t.record), settings=Settings(bootstrap_replicates=20))
+        result = pool(effects, keys=lambda e: [e.themes[0]], permutations=0)
+        for g in result.groups:
+            mean, tau = make_demo.TRUE_EFFECTS[g.key]
+            covered_mean.append(g.lift_low <= math.expm1(mean) <= g.lift_high)
+            covered_tau2.append((g.tau2_low or 0.0) <= tau**2 <= (g.tau2_high or 0.0))
+    # nominal 95%; with 60 intervals, 85% is more than four binomial standard errors below
+    assert np.mean(covered_mean) >= 0.85, np.mean(covered_mean)
+    assert np.mean(covered_tau2) >= 0.85, np.mean(covered_tau2)
+
+
+def test_cli_pool_on_demo_archive(tmp_path: Path) -> None:
+    result = runner.invoke(app, ["pool", "--records", str(ROOT / "records"), "--format", "json"])
+    assert result.exit_code == 0, result.output
+    data = json.loads(result.stdout)
+    assert data["by"] == "theme" and len(data["groups"]) >= 8
+    lows = [g["lift_low"] for g in data["groups"]]
+    assert lows == sorted(lows, reverse=True)  # ranked by the lower end of the interval
+    assert data["programme"]["false_positive_risk"] is not None
+    result = runner.invoke(
+        app,
+        [
+            "pool",
+            "--records",
+            str(ROOT / "records"),
+            "--by",
+            "page_area",
+            "--format",
+            "markdown",
+            "--plots",
+            str(tmp_path),
+        ],
+    )
+    assert result.exit_code == 0 and "## What tends to win" in result.stdout
+    assert (tmp_path / "funnel.svg").exists() and any(tmp_path.glob("forest-*.svg"))
+    result = runner.invoke(app, ["pool", "--records", str(ROOT / "records"), "--by", "segment:device", "-f", "json"])
+    assert result.exit_code == 0 and {g["key"] for g in json.loads(result.stdout)["groups"]} >= {"device=mobile"}
+    result = runner.invoke(app, ["pool", "--records", str(ROOT / "records"), "--by", "colour"])
+    assert result.exit_code == 2 and "unknown grouping" in result.stderr
+
+
+def test_quantile_of_t_used_for_prediction() -> None:
+    # Higgins et al. (2009): the prediction interval uses t with k - 2 degrees of freedom
+    effects = [_effect(v, 0.0004, record_id=f"r{i}") for i, v in enumerate([0.0, 0.05, -0.03, 0.08, 0.01, 0.02])]
+    (g,) = pool(effects, "theme", permutations=0).groups
+    from archive.stats.meta import random_effects
+
+    y = np.array([0.0, 0.05, -0.03, 0.08, 0.01, 0.02])
+    plain = random_effects(y, np.full(6, 0.0004), "REML", hksj=False)
+    half = stats.t.ppf(0.975, 4) * math.sqrt(plain.tau2 + plain.se**2)
+    assert math.log1p(g.prediction_high) == pytest.approx(plain.mean + half, rel=1e-8)
