@@ -327,7 +327,7 @@ def interval_plain_rate(r) -> str:  # type: ignore[no-untyped-def]
 # --- Markdown -------------------------------------------------------------------------------------------
 
 _MD_SPECIAL = re.compile(r"([\\`*_\[\]|~])")
-_MD_LINE_START = re.compile(r"^(?:([#+\->=])|(\d+)([.)]))")
+_MD_LINE_START = re.compile(r"^(?:([#+\-=])(?=\s|$)|(>)|(\d+)([.)])(?=\s|$))")
 
 
 def md_text(text: str) -> str:
@@ -335,7 +335,7 @@ def md_text(text: str) -> str:
     no raw HTML, link, emphasis or table cell break survives)."""
     one_line = " ".join(text.split())
     escaped = _MD_SPECIAL.sub(r"\\\1", html.escape(one_line, quote=False))
-    return _MD_LINE_START.sub(lambda m: "\\" + m[1] if m[1] else m[2] + "\\" + m[3], escaped)
+    return _MD_LINE_START.sub(lambda m: "\\" + (m[1] or m[2]) if m[1] or m[2] else m[3] + "\\" + m[4], escaped)
 
 
 def render_markdown(memo: Memo) -> str:
