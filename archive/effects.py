@@ -14,10 +14,13 @@ import datetime as dt
 import math
 from collections.abc import Iterable
 from dataclasses import dataclass, field
+from pathlib import Path
 
 from .analysis import CannotAnalyze, Settings, analyze
 from .orders import Orders
+from .problems import ArchiveInvalid, errors
 from .record import Record
+from .validate import LoadedRecord, check_archive
 
 
 @dataclass
@@ -177,3 +180,15 @@ def archive_effects(
             continue
         out += segment_effects(record, segment, settings) if segment else record_effects(record, orders, settings)
     return out
+
+
+def load_archive_effects(
+    records_dir: Path, settings: Settings | None = None, segment: str | None = None
+) -> tuple[list[LoadedRecord], list[Effect]]:
+    """Check the archive (refusing one with errors) and return its records and their effects."""
+    report = check_archive(records_dir)
+    failing = errors(report.problems)
+    if failing:
+        raise ArchiveInvalid(failing)
+    effects = archive_effects(((lr.record, lr.orders) for lr in report.records), settings, segment)
+    return report.records, effects

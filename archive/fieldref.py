@@ -8,11 +8,12 @@ from typing import Any
 
 from pydantic import BaseModel
 
-from .record import Arm, Decision, Link, Plan, Record, SegmentCounts
+from .record import Arm, Decision, Link, Plan, PlanPrior, Record, SegmentCounts
 
 SECTIONS: tuple[tuple[str, type[BaseModel], str], ...] = (
     ("Record", Record, "The top level of `records/<id>.yaml`."),
     ("plan", Plan, "Under `plan:`."),
+    ("plan.prior", PlanPrior, "Under `plan: prior:` (written by `archive plan --write`)."),
     ("arms[]", Arm, "Each item under `arms:`."),
     ("segments.<dimension>.<value>.<arm>", SegmentCounts, "Counts of one arm in one segment."),
     ("decision", Decision, "Under `decision:`."),

@@ -62,6 +62,16 @@ class RecordCore(SQLModel):
     iterates_on: str | None = Field(default=None, description="Id of the earlier test this one is a new round of.")
 
 
+class PlanPrior(SQLModel):
+    """The prior for the true lift taken from the archive when the test was planned (`archive prior`)."""
+
+    model_config = _STRICT  # type: ignore[assignment]
+
+    source: str = Field(min_length=1, description="Which archived comparisons the prior came from.")
+    mean_log_lift: float = Field(description="Mean of log(1 + relative lift) under the prior.")
+    sd_log_lift: float = Field(gt=0, description="Standard deviation of log(1 + relative lift) under the prior.")
+
+
 class Plan(SQLModel):
     """What was decided before the test started (pre-registration)."""
 
@@ -87,6 +97,7 @@ class Plan(SQLModel):
         default_factory=list,
         description="Segment dimensions named before the test started; other cuts are exploratory.",
     )
+    prior: PlanPrior | None = Field(default=None, description="The history prior used for planning, if any.")
 
 
 class ArmCore(SQLModel):

@@ -44,6 +44,7 @@ class Draft:
     started: dt.date | None = None
     ended: dt.date | None = None
     hypothesis: str = ""
+    plan: dict[str, object] | None = None  # filled plan values (from `archive plan --write`)
 
 
 def arms_from_names(names: list[str], control: str | None = None) -> list[Arm]:
@@ -140,14 +141,7 @@ def render(draft: Draft) -> str:
         "hypothesis: >-",
         f"  {draft.hypothesis or PLACEHOLDER_HYPOTHESIS}",
         "",
-        "plan:  # what was fixed before launch",
-        "  baseline_rate:      # control's expected conversion rate, e.g. 0.031",
-        "  minimum_lift:       # smallest relative lift worth detecting, e.g. 0.05 for +5%",
-        "  alpha: 0.05",
-        "  power: 0.8",
-        "  visitors_per_arm:",
-        "  split:",
-        *[f"    {_q(a.name)}: 1" for a in arms],
+        *_plan_lines(draft, arms),
         "",
         "arms:  # exactly one arm has control: true",
     ]
@@ -188,10 +182,60 @@ def render(draft: Draft) -> str:
     return text
 
 
+def _plan_lines(draft: Draft, arms: list[Arm]) -> list[str]:
+    plan = draft.plan or {}
+
+    def value(key: str, comment: str = "") -> str:
+        shown = plan.get(key)
+        text = f"  {key}: {'' if shown is None else shown}"
+        return f"{text}  # {comment}" if comment else text
+
+    lines = [
+        "plan:  # what was fixed before launch",
+        value("baseline_rate", "control's expected conversion rate, e.g. 0.031"),
+        value("minimum_lift", "smallest relative lift worth detecting, e.g. 0.05 for +5%"),
+        value("alpha") if "alpha" in plan else "  alpha: 0.05",
+        value("power") if "power" in plan else "  power: 0.8",
+        value("visitors_per_arm"),
+        *([value("days")] if "days" in plan else []),
+        "  split:",
+    ]
+    weights = plan.get("split") or {a.name: 1 for a in arms}
+    lines += [f"    {_q(name)}: {w}" for name, w in weights.items()]  # type: ignore[attr-defined]
+    prior = plan.get("prior")
+    if isinstance(prior, dict):
+        lines += ["  prior:", *(f"    {k}: {_q(v) if isinstance(v, str) else v}" for k, v in prior.items())]
+    return lines
+
+
+def render_plan(draft: Draft, result, weights: list[float], prior) -> str:  # type: ignore[no-untyped-def]
+    """A planned record (pre-registration) from an :class:`archive.planning.TestPlan`."""
+    draft.status = "planned"
+    draft.plan = {
+        "baseline_rate": round(result.baseline, 6),
+        "minimum_lift": result.minimum_lift,
+        "alpha": result.alpha,
+        "power": result.power,
+        "visitors_per_arm": result.visitors_per_arm,
+        "split": {a.name: w for a, w in zip(draft.arms, weights, strict=True)},
+    }
+    if result.days:
+        draft.plan["days"] = result.days
+    if prior is not None:
+        draft.plan["prior"] = {
+            "source": f"{prior.source} ({prior.comparisons} comparisons)",
+            "mean_log_lift": round(prior.mean, 6),
+            "sd_log_lift": round(prior.sd, 6),
+        }
+    return render(draft)
+
+
 def _self_check(text: str, draft: Draft) -> None:
     doc = parse_yaml(f"{draft.id}.yaml", text.encode("utf-8"))
     data = {k: v for k, v in doc.data.items() if v is not None}
     data["plan"] = {k: v for k, v in (data.get("plan") or {}).items() if v is not None}
+    if isinstance(data["plan"].get("split"), dict):
+        data["plan"]["split"] = {k: float(v) for k, v in data["plan"]["split"].items()}
     data["arms"] = [{k: v for k, v in arm.items() if v is not None} for arm in data["arms"]]
     try:
         Record.model_validate(data)

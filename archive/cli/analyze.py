@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import sys
+from dataclasses import asdict
 from enum import StrEnum
 from pathlib import Path
 from typing import Annotated
@@ -44,6 +45,9 @@ def analyze(
         list[str] | None, typer.Option("--by", help="Segment dimension to slice by (repeat for several).")
     ] = None,
     adjust: Annotated[Adjust, typer.Option(help="Multiple-comparison adjustment across segments.")] = Adjust.bh,
+    prior: Annotated[
+        str, typer.Option(help="uniform (Beta(1,1) per arm) or history: also show lifts under the archive's prior.")
+    ] = "uniform",
     forest: Annotated[
         Path | None, typer.Option(help="With --by: write one forest plot per arm, named <stem>-<arm><suffix>.")
     ] = None,
@@ -65,6 +69,7 @@ def analyze(
         settings = Settings(margin=margin, srm_alpha=srm_alpha, bootstrap_replicates=replicates)
         result = run_analysis(loaded.record, loaded.orders, settings)
         segments = analyze_segments(loaded.record, by, adjust.value, settings) if by else None
+        history = _history(loaded.record, records, prior) if prior != "uniform" else None
         written = []
         if plot is not None:
             from ..plots import posterior_lift_plot
@@ -79,13 +84,48 @@ def analyze(
     if fmt is MemoFormat.json:
         data = result.to_dict()
         data["segments"] = segments.to_dict() if segments is not None else None
+        data["history_prior"] = (
+            None
+            if history is None
+            else {
+                "prior": {**asdict(history[0]), "label": history[0].label()},
+                "comparisons": [asdict(i) for i in history[1]],
+            }
+        )
         sys.stdout.write(json.dumps(data, indent=2, ensure_ascii=False) + "\n")
-    elif fmt is MemoFormat.markdown:
-        sys.stdout.write(render_markdown(build_memo(result, segments)))
     else:
-        render_terminal(build_memo(result, segments), out)
+        memo = build_memo(result, segments)
+        if history is not None:
+            from ..planreport import informed_section
+
+            memo.sections.insert(2, informed_section(history[1], history[0]))
+        if fmt is MemoFormat.markdown:
+            sys.stdout.write(render_markdown(memo))
+        else:
+            render_terminal(memo, out)
     for path in written:
         err.print(f"plot written to {path}", markup=False)
+
+
+def _history(record, records: Path, prior: str):  # type: ignore[no-untyped-def]
+    """The history prior for this test and each comparison's lift under it."""
+    from ..effects import load_archive_effects
+    from ..priors import informed_lift, prior_for_record
+    from ..stats.proportions import log_risk_ratio
+
+    if prior != "history":
+        raise ValueError("--prior is uniform or history")
+    _, effects = load_archive_effects(records)
+    chosen = prior_for_record(effects, record)
+    control = record.control_arm()
+    minimum = record.plan.minimum_lift if record.plan else None
+    items = []
+    for arm in record.arms:
+        if arm.control:
+            continue
+        log_rr, var, _ = log_risk_ratio(arm.conversions, arm.visitors, control.conversions, control.visitors)
+        items.append(informed_lift(arm.name, log_rr, var**0.5, chosen, minimum))
+    return chosen, items
 
 
 def _record_path(record_id: str | None, file: Path | None, records: Path) -> Path:

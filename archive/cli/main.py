@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import typer
 
-from . import analyze, catalog, pool, records
+from . import analyze, catalog, planning, pool, records
 
 app = typer.Typer(
     name="archive",
@@ -22,6 +22,9 @@ app.command("search")(catalog.search)
 app.command("show")(catalog.show)
 app.command("analyze")(analyze.analyze)
 app.command("pool")(pool.pool)
+app.command("prior")(planning.prior)
+app.command("plan")(planning.plan)
+app.command("calibrate")(planning.calibrate)
 
 
 def main() -> None:

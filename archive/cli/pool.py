@@ -10,9 +10,8 @@ from typing import Annotated
 
 import typer
 
-from ..validate import check_archive
 from .analyze import MemoFormat
-from .common import RecordsOption, err, out, print_problems, user_errors
+from .common import RecordsOption, err, out, user_errors
 
 
 class Method(StrEnum):
@@ -37,20 +36,15 @@ def pool(
     records: RecordsOption = Path("records"),
 ) -> None:
     """Pool every comparison by group: pooled lift, spread, prediction interval, win rates, realistic lifts."""
-    from ..effects import archive_effects
+    from ..effects import load_archive_effects
     from ..pooling import pool as run_pool
     from ..report import build_pool_memo, render_markdown, render_terminal
 
     with user_errors():
-        report = check_archive(records)
-        if any(p.severity == "error" for p in report.problems):
-            print_problems([p for p in report.problems if p.severity == "error"])
-            err.print("the archive has errors; fix them (see `archive check`) before pooling.")
-            raise typer.Exit(1)
         grouping, segment = (by, None)
         if by.startswith("segment:"):
             grouping, segment = "segment", by.split(":", 1)[1]
-        effects = archive_effects(((lr.record, lr.orders) for lr in report.records), segment=segment)
+        _, effects = load_archive_effects(records, segment=segment)
         if not effects:
             raise ValueError("no finished test with results to pool")
         result = run_pool(effects, grouping, method=method.value, hksj=hksj, include_untrusted=include_untrusted)

@@ -1,0 +1,123 @@
+"""Memos for priors, plans and the calibration replay (rendered by :mod:`archive.report`)."""
+
+from __future__ import annotations
+
+from .calibration import Calibration
+from .planning import TestPlan
+from .priors import BaselinePrior, InformedLift, LiftPrior
+from .report import Memo, Section, Table, interval, pct
+
+
+def prior_memo(prior: LiftPrior, baseline: BaselinePrior | None, lift: float | None) -> Memo:
+    low, high = prior.interval()
+    lead = [prior.label() + "."]
+    if prior.warning:
+        lead.append(f"Warning: {prior.warning}.")
+    bullets = [
+        f"P(true lift > 0) = {prior.prob_above(0.0):.3f}",
+        f"expected lift {pct(prior.lift, 2, True)}; 95% of true lifts of such tests between {pct(low, 1, True)} and "
+        f"{pct(high, 1, True)} (tau² {prior.tau2:.5f} between tests plus the uncertainty of the mean)",
+    ]
+    if lift is not None:
+        bullets.append(f"P(true lift > {pct(lift, 1, True)}) = {prior.prob_above(lift):.3f}")
+    if baseline is not None:
+        b_low, b_high = baseline.interval()
+        bullets.append(
+            f"baseline conversion on {baseline.page_area}: Beta({baseline.alpha:.1f}, {baseline.beta:.1f}) fitted to "
+            f"{baseline.controls} control arms, mean {pct(baseline.mean, 2)}, 95% [{pct(b_low, 2)}, {pct(b_high, 2)}]"
+        )
+    return Memo("Prior for a new test", lead, [Section("What history says", bullets=bullets)])
+
+
+def plan_memo(p: TestPlan) -> Memo:
+    lead = [
+        f"{p.visitors_per_arm:,} visitors per treatment arm and {p.visitors_control:,} in control "
+        f"({p.visitors_total:,} in all) to detect +{p.minimum_lift:.1%} on a {pct(p.baseline, 2)} baseline with power "
+        f"{p.power:.0%} at two-sided alpha {p.alpha:g} ({p.correction}: {p.alpha_per_comparison:.4g} per comparison)."
+    ]
+    if p.weeks is not None:
+        lead.append(f"At {p.daily_visitors:,.0f} visitors a day: {p.weeks} whole weeks ({p.days} days).")
+    bullets = []
+    if p.assurance is not None:
+        bullets += [
+            f"assurance (P of a significant win that is real, averaged over the prior): {p.assurance:.3f}, "
+            f"beside its ceiling P(true lift > 0) = {p.assurance_ceiling:.3f}",
+            f"P(any significant win, false ones included): {p.any_significant_win:.3f}",
+        ]
+    if p.power_at_expected_lift is not None:
+        bullets.append(f"power at the lift history expects: {p.power_at_expected_lift:.2f}")
+    if p.exaggeration_at_expected_lift is not None:
+        bullets.append(
+            f"a winner's observed lift will overstate the truth about {p.exaggeration_at_expected_lift:.2f}x "
+            "at that power (Gelman & Carlin 2014)"
+        )
+    if p.false_positive_risk is not None and p.theme_success_rate is not None:
+        bullets.append(
+            f"the theme's implied true success rate {pct(p.theme_success_rate)} makes a winner a false positive "
+            f"with probability {pct(p.false_positive_risk)} (Kohavi, Deng & Vermeer 2022)"
+        )
+    bullets += [f"Warning: {w}." for w in p.warnings]
+    sections = [Section("The odds", bullets=bullets)] if bullets else []
+    sections.append(Section("Assumptions", bullets=list(p.assumptions)))
+    return Memo("Plan for a new test", lead, sections)
+
+
+def informed_section(items: list[InformedLift], prior: LiftPrior) -> Section:
+    rows = [
+        [
+            i.arm,
+            pct(i.observed_lift, 1, True),
+            f"{pct(i.shrunk_lift, 1, True)} {interval(i.low, i.high)}",
+            f"{i.prob_positive:.3f}",
+            "" if i.prob_above_minimum is None else f"{i.prob_above_minimum:.3f}",
+            f"{i.weight_on_data:.0%}",
+        ]
+        for i in items
+    ]
+    table = Table(
+        ["arm", "observed lift", "with history prior (95%)", "P(lift > 0)", "P(lift > plan minimum)", "weight on data"],
+        rows,
+    )
+    return Section(
+        "With the history prior",
+        paragraphs=[f"{prior.label()}; combined with each comparison's normal likelihood of the log lift."]
+        + ([f"Warning: {prior.warning}."] if prior.warning else []),
+        tables=[table],
+    )
+
+
+def calibration_memo(c: Calibration) -> Memo:
+    rows = []
+    for name, s in (("history prior", c.history), (f"flat prior (sd {c.flat_prior_sd:g})", c.flat)):
+        rows.append(
+            [
+                name,
+                str(s.forecasts),
+                pct(s.coverage),
+                "n/a" if s.mean_width is None else f"{s.mean_width:.3f}",
+                "n/a" if s.brier is None else f"{s.brier:.4f}",
+                pct(s.mean_forecast),
+                pct(s.win_rate),
+            ]
+        )
+    table = Table(
+        [
+            "forecast",
+            "comparisons",
+            "95% interval coverage",
+            "mean width (log)",
+            "Brier of P(win)",
+            "mean P(win)",
+            "observed wins",
+        ],
+        rows,
+    )
+    lead = [f"{c.history.forecasts} comparisons replayed in date order; {c.skipped} had too little history."]
+    if c.history.brier is not None and c.flat.brier is not None:
+        better = c.history.brier < c.flat.brier
+        lead.append(
+            "History forecasts better than a flat prior (lower Brier score)."
+            if better
+            else "History does not forecast better than a flat prior here."
+        )
+    return Memo("Calibration of history priors", lead, [Section("Scores", tables=[table], bullets=c.notes)])

@@ -1,0 +1,185 @@
+"""Priors, plans and calibration against published values, re-derived tables and seeded simulations."""
+
+from __future__ import annotations
+
+import json
+import math
+import shutil
+from pathlib import Path
+
+import numpy as np
+import pytest
+from typer.testing import CliRunner
+
+from archive.cli.main import app
+from archive.effects import load_archive_effects
+from archive.planning import assurance, dunnett_critical, exaggeration, plan_test
+from archive.priors import LiftPrior, informed_lift, lift_prior
+
+ROOT = Path(__file__).resolve().parents[1]
+runner = CliRunner()
+
+
+def test_plan_matches_r_power_prop_test() -> None:
+    # R power.prop.test(p1=.50, p2=.75, power=.90) -> n = 76.70693 per group (stats-Ex.Rout.save)
+    plan = plan_test(0.5, 0.5, power=0.9)
+    assert plan.visitors_per_arm == 77 and plan.visitors_total == 154
+
+
+def test_bonferroni_for_several_arms() -> None:
+    # three arms: two comparisons at alpha/2 each; n from the same formula at alpha 0.025
+    from archive.stats.power import visitors_per_arm
+
+    plan = plan_test(0.03, 0.05, arms=3)
+    assert plan.alpha_per_comparison == 0.025
+    assert plan.visitors_per_arm == math.ceil(visitors_per_arm(0.0315, 0.03, alpha=0.025, power=0.8))
+    assert plan.visitors_total == 3 * plan.visitors_per_arm
+
+
+@pytest.mark.parametrize(("treatments", "table"), [(2, 2.21), (3, 2.35), (4, 2.44)])
+def test_dunnett_critical_values(treatments: int, table: float) -> None:
+    # Dunnett (1955) two-sided many-to-one critical values for infinite df, equal groups (from memory: 2.21,
+    # 2.35, 2.44); checked below by a seeded simulation of the correlated z-statistics
+    share = 1 / (treatments + 1)
+    c = dunnett_critical(treatments, 0.05, share)
+    assert c == pytest.approx(table, abs=0.006)
+    rng = np.random.default_rng(treatments)
+    control = rng.standard_normal(400_000)
+    arms = rng.standard_normal((400_000, treatments))
+    z = (arms - control[:, None]) / math.sqrt(2)  # equal groups: correlation 1/2
+    assert np.mean(np.abs(z).max(axis=1) > c) == pytest.approx(0.05, abs=0.0015)
+
+
+def test_dunnett_plan_needs_fewer_visitors_than_bonferroni() -> None:
+    bonferroni = plan_test(0.03, 0.05, arms=4)
+    dunnett = plan_test(0.03, 0.05, arms=4, correction="dunnett")
+    assert dunnett.visitors_per_arm < bonferroni.visitors_per_arm
+    assert dunnett.alpha_per_comparison > bonferroni.alpha_per_comparison
+
+
+@pytest.mark.parametrize(("power", "expected"), [(0.8, 1.13), (0.5, 1.41), (0.3, 1.81), (0.2, 2.26), (0.1, 3.72)])
+def test_exaggeration_table(power: float, expected: float) -> None:
+    # Gelman & Carlin (2014) design analysis: E[estimate | significant, positive] / true effect;
+    # check-values §11 table (re-derived from the truncated normal)
+    assert exaggeration(power) == pytest.approx(expected, abs=0.006)  # table printed to two decimals
+
+
+def test_variance_reduction_and_whole_weeks() -> None:
+    plain = plan_test(0.03, 0.05, daily_visitors=10_000)
+    reduced = plan_test(0.03, 0.05, daily_visitors=10_000, rho=0.5)
+    assert reduced.visitors_per_arm == math.ceil(plain.visitors_per_arm * 0.75) or (
+        abs(reduced.visitors_per_arm - plain.visitors_per_arm * 0.75) <= 1
+    )
+    assert plain.days is not None and plain.days % 7 == 0
+    assert plain.days >= plain.visitors_total / 10_000
+
+
+def test_assurance_against_simulated_tests() -> None:
+    prior = LiftPrior("invented", 20, 0.02, 0.04, 0.0012)
+    baseline, n = 0.05, 40_000
+    z = 1.959963984540054
+    real, ceiling, any_win = assurance(baseline, prior, n, n, z)
+    # seeded Monte Carlo of whole tests: true lift from the prior, binomial counts, z-test of the log risk ratio
+    rng = np.random.default_rng(17)
+    theta = rng.normal(prior.mean, prior.sd, 300_000)
+    x_c = rng.binomial(n, baseline, size=theta.size)
+    x_t = rng.binomial(n, np.clip(baseline * np.exp(theta), 0, 1))
+    log_rr = np.log((x_t / n) / (x_c / n))
+    se = np.sqrt(1 / x_t - 1 / n + 1 / x_c - 1 / n)
+    win = log_rr / se > z
+    assert real == pytest.approx(np.mean(win & (theta > 0)), abs=0.004)
+    assert any_win == pytest.approx(np.mean(win), abs=0.004)
+    assert ceiling == pytest.approx(np.mean(theta > 0), abs=0.003)
+
+
+@pytest.mark.parametrize("n", [50, 1_000, 30_000, 1_000_000, 100_000_000])
+def test_assurance_never_exceeds_its_ceiling(n: int) -> None:
+    # O'Hagan, Stevens & Campbell (2005): assurance cannot exceed P(effect > 0)
+    for prior in (LiftPrior("a", 9, 0.02, 0.03, 0.0), LiftPrior("b", 9, -0.05, 0.01, 0.0)):
+        real, ceiling, _ = assurance(0.03, prior, n, n, 1.96)
+        assert real <= ceiling + 1e-12
+    real, ceiling, _ = assurance(0.03, LiftPrior("c", 9, 0.02, 0.03, 0.0), 10**14, 10**14, 1.96)
+    assert real == pytest.approx(ceiling, abs=1e-4)  # an enormous test finds (almost) every real gain
+
+
+def test_warning_when_hoped_lift_is_beyond_history() -> None:
+    prior = LiftPrior("theme x", 12, 0.01, 0.015, 0.0001)
+    plan = plan_test(0.03, 0.15, prior=prior)
+    assert any("rarely move conversion by that much" in w for w in plan.warnings)
+    assert not any("rarely" in w for w in plan_test(0.03, 0.02, prior=prior).warnings)
+
+
+def test_informed_lift_is_the_normal_normal_update() -> None:
+    prior = LiftPrior("x", 10, 0.01, 0.02, 0.0)
+    result = informed_lift("b", math.log(1.15), 0.05, prior, minimum_lift=0.05)
+    weight = (1 / 0.05**2) / (1 / 0.05**2 + 1 / 0.02**2)
+    assert result.weight_on_data == pytest.approx(weight)
+    assert math.log1p(result.shrunk_lift) == pytest.approx(weight * math.log(1.15) + (1 - weight) * 0.01)
+    assert result.shrunk_lift < 0.05 < 0.15  # a surprising +15% on a theme that rarely exceeds +2% shrinks hard
+
+
+def test_prior_falls_back_with_a_warning() -> None:
+    _, effects = load_archive_effects(ROOT / "records")
+    theme_only = lift_prior(effects, "shipping-cost", "checkout")
+    assert theme_only.source == "theme shipping-cost" and theme_only.warning is not None
+    whole = lift_prior(effects, "no-such-theme")
+    assert whole.source == "the whole archive" and "whole archive" in (whole.warning or "")
+    direct = lift_prior(effects, "social-proof")
+    assert direct.warning is None and direct.comparisons >= 5
+
+
+def test_calibration_on_demo_archive_beats_a_flat_prior() -> None:
+    from archive.calibration import calibrate
+
+    _, effects = load_archive_effects(ROOT / "records")
+    result = calibrate(effects)
+    assert result.history.forecasts > 40
+    assert result.history.brier is not None and result.flat.brier is not None
+    assert result.history.brier < result.flat.brier
+    assert result.history.coverage is not None and 0.85 <= result.history.coverage <= 1.0
+
+
+def test_cli_prior_plan_calibrate(tmp_path: Path) -> None:
+    records = tmp_path / "records"
+    shutil.copytree(ROOT / "records", records)
+    result = runner.invoke(app, ["prior", "--theme", "social-proof", "--records", str(records), "-f", "json"])
+    assert result.exit_code == 0, result.output
+    assert 0 < json.loads(result.stdout)["prob_positive"] < 1
+    result = runner.invoke(
+        app,
+        ["prior", "--theme", "social-proof", "--page-area", "product-page", "--records", str(records), "-f", "yaml"],
+    )
+    assert result.exit_code == 0 and "  prior:" in result.stdout and "mean_log_lift" in result.stdout
+    args = [
+        "plan",
+        "--minimum-lift",
+        "0.05",
+        "--page-area",
+        "product-page",
+        "--theme",
+        "social-proof",
+        "--daily-visitors",
+        "9000",
+        "--records",
+        str(records),
+        "--write",
+        "2026-03-bundle-badge",
+        "--title",
+        "X",
+    ]
+    result = runner.invoke(app, args)
+    assert result.exit_code == 0, result.output
+    assert "assurance" in result.stdout and "ceiling" in result.stdout and "whole weeks" in result.stdout
+    written = records / "2026-03-bundle-badge.yaml"
+    assert "status: planned" in written.read_text()
+    assert runner.invoke(app, ["check", "--records", str(records)]).exit_code == 0
+    before = written.read_bytes()
+    assert runner.invoke(app, args).exit_code == 1 and written.read_bytes() == before  # never overwrites
+    result = runner.invoke(app, ["calibrate", "--records", str(records), "-f", "json"])
+    assert result.exit_code == 0 and json.loads(result.stdout)["history"]["forecasts"] > 0
+    result = runner.invoke(
+        app, ["analyze", "2024-11-gift-wrap-checkbox", "--records", str(records), "--prior", "history", "-f", "json"]
+    )
+    data = json.loads(result.stdout)
+    (item,) = data["history_prior"]["comparisons"]
+    assert item["shrunk_lift"] < item["observed_lift"]
