@@ -338,11 +338,11 @@ def md_text(text: str) -> str:
     return _MD_LINE_START.sub(lambda m: "\\" + (m[1] or m[2]) if m[1] or m[2] else m[3] + "\\" + m[4], escaped)
 
 
-def render_markdown(memo: Memo) -> str:
-    out = [f"# {md_text(memo.title)}", ""]
-    out += [md_text(p) + "\n" for p in memo.lead]
-    for section in memo.sections:
-        out += [f"## {section.heading}", ""]
+def markdown_sections(sections: list[Section], level: int = 2) -> list[str]:
+    """Sections as Markdown lines; every cell and sentence escaped with :func:`md_text`."""
+    out: list[str] = []
+    for section in sections:
+        out += [f"{'#' * level} {md_text(section.heading)}", ""]
         out += [md_text(p) + "\n" for p in section.paragraphs]
         for table in section.tables:
             out.append("| " + " | ".join(md_text(h) for h in table.headers) + " |")
@@ -352,6 +352,13 @@ def render_markdown(memo: Memo) -> str:
         out += [f"- {md_text(b)}" for b in section.bullets]
         if section.bullets:
             out.append("")
+    return out
+
+
+def render_markdown(memo: Memo) -> str:
+    out = [f"# {md_text(memo.title)}", ""]
+    out += [md_text(p) + "\n" for p in memo.lead]
+    out += markdown_sections(memo.sections)
     return "\n".join(out).rstrip() + "\n"
 
 

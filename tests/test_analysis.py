@@ -199,8 +199,9 @@ def test_cli_analyze_formats_and_plot(tmp_path: Path) -> None:
         "recommendation",
         "settings",
         "segments",
+        "history_prior",
     }
-    assert data["segments"] is None  # present, empty, without --by
+    assert data["segments"] is None and data["history_prior"] is None  # present, empty, unless asked for
     assert data["comparisons"][0]["revenue"]["bootstrap"]["replicates"] == 200
     plot = tmp_path / "lift.svg"
     result = runner.invoke(app, ["analyze", "--file", str(path), "--format", "markdown", "--plot", str(plot)])
