@@ -16,7 +16,7 @@ from collections.abc import Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from .analysis import CannotAnalyze, Settings, analyze
+from .analysis import Analysis, CannotAnalyze, Settings, analyze
 from .orders import Orders
 from .problems import ArchiveInvalid, errors
 from .record import Record
@@ -89,6 +89,11 @@ def record_effects(record: Record, orders: Orders | None = None, settings: Setti
         analysis = analyze(record, orders, settings)
     except CannotAnalyze:
         return []
+    return record_effects_from(record, analysis)
+
+
+def record_effects_from(record: Record, analysis: Analysis) -> list[Effect]:
+    """The comparisons of a test whose analysis is already at hand."""
     control = record.control_arm()
     treatments = [a for a in record.arms if not a.control]
     m = len(treatments)

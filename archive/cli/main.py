@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import typer
 
-from . import analyze, catalog, planning, pool, records
+from . import analyze, catalog, planning, pool, records, site
 
 app = typer.Typer(
     name="archive",
@@ -25,6 +25,7 @@ app.command("pool")(pool.pool)
 app.command("prior")(planning.prior)
 app.command("plan")(planning.plan)
 app.command("calibrate")(planning.calibrate)
+app.add_typer(site.app, name="site")
 
 
 def main() -> None:

@@ -1,0 +1,61 @@
+"""The site commands: build the archive's website, serve it locally."""
+
+from __future__ import annotations
+
+import contextlib
+from pathlib import Path
+from typing import Annotated
+
+import typer
+
+from .common import RecordsOption, err, show_progress, user_errors
+
+app = typer.Typer(help="Publish the archive as a browsable site (MkDocs).", no_args_is_help=True)
+
+OutOption = Annotated[Path, typer.Option("--out", help="Output folder (docs/, mkdocs.yml, html/).")]
+
+
+@app.command("build")
+def build(
+    out: OutOption = Path("site-build"),
+    title: Annotated[str, typer.Option(help="Site title.")] = "Test archive",
+    records: RecordsOption = Path("records"),
+) -> None:
+    """Generate Markdown and SVG from the archive and build the HTML site."""
+    from ..site.build import build_site
+    from ..site.engine import MkDocsProblems
+
+    with user_errors():
+        try:
+            report = build_site(records, out, title, progress=(lambda m: err.print(m)) if show_progress() else None)
+        except MkDocsProblems as exc:
+            for message in exc.messages:
+                err.print(f"mkdocs: {message}", markup=False)
+            raise typer.Exit(1) from None
+    err.print(
+        f"{report.pages} pages ({len(report.written)} files written, {len(report.removed)} removed, "
+        f"{report.fresh_entries} tests analysed afresh) in {report.generate_seconds:.1f} s + MkDocs "
+        f"{report.mkdocs_seconds:.1f} s. Open {report.html}/index.html",
+        markup=False,
+    )
+
+
+@app.command("serve")
+def serve(
+    out: OutOption = Path("site-build"),
+    port: Annotated[int, typer.Option(help="Port on localhost.")] = 8000,
+    records: RecordsOption = Path("records"),
+) -> None:
+    """Build, then serve the site on http://127.0.0.1:PORT until interrupted."""
+    import functools
+    import http.server
+
+    from ..site.build import build_site
+
+    with user_errors():
+        report = build_site(records, out)
+    handler = functools.partial(http.server.SimpleHTTPRequestHandler, directory=str(report.html))
+    with http.server.ThreadingHTTPServer(("127.0.0.1", port), handler) as server:
+        err.print(f"serving {report.html} at http://127.0.0.1:{port}/ (Ctrl-C to stop)")
+        with contextlib.suppress(KeyboardInterrupt):
+            server.serve_forever()

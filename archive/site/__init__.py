@@ -1,0 +1,1 @@
+"""The published site: page model -> Markdown + SVG -> MkDocs."""

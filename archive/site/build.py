@@ -1,0 +1,171 @@
+"""Building the site: records -> entries -> pages and charts -> ``docs/`` -> MkDocs -> ``html/``.
+
+The output folder holds ``docs/`` (generated Markdown and SVG), ``mkdocs.yml``, ``html/`` (the built site) and
+``.cache/`` (per-record entries). Only files whose bytes change are rewritten, and files no longer generated are
+removed, so a rebuild after one record changed touches only the pages that depend on it before MkDocs runs.
+The records folder is only read.
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from ..effects import Effect
+from ..files import write_replace
+from ..pooling import PoolResult, pool
+from ..problems import ArchiveInvalid, errors
+from ..validate import check_archive
+from . import pages, svg
+from .entries import load_entries
+
+REFERENCE = Path(__file__).resolve().parents[2] / "site"
+NAV = """nav:
+  - Home: index.md
+  - Tests: tests/index.md
+  - Themes: themes/index.md
+  - Page areas: areas/index.md
+  - Learnings: learnings.md
+  - Tags: tags.md
+  - Reference:
+      - Record fields: reference/record-fields.md
+      - Analysis JSON: reference/analysis-json.md
+"""
+
+
+@dataclass
+class BuildReport:
+    out: Path
+    pages: int = 0
+    written: list[str] = field(default_factory=list)
+    removed: list[str] = field(default_factory=list)
+    fresh_entries: int = 0
+    generate_seconds: float = 0.0
+    mkdocs_seconds: float = 0.0
+    html: Path | None = None
+
+
+def mkdocs_config(title: str) -> str:
+    """The MkDocs configuration: a navigation of constant size (tests are reached from index pages, so the
+    build stays linear in the number of tests), built-in theme and search, our own stylesheet."""
+    return (
+        f"site_name: {title!r}\n"
+        "docs_dir: docs\n"
+        "site_dir: html\n"
+        "use_directory_urls: false\n"
+        "theme:\n  name: mkdocs\n  navigation_depth: 2\n  highlightjs: false\n"
+        "extra_css:\n  - assets/archive.css\n"
+        "plugins:\n  - search\n"
+        "markdown_extensions:\n  - tables\n  - toc:\n      permalink: false\n  - attr_list\n"
+        "validation:\n  links:\n    not_found: warn\n    anchors: warn\n" + NAV
+    )
+
+
+STYLE = """/* archive: our own colours (ink blue, clay) on the built-in theme */
+:root { --archive-ink: #1b3a4b; --archive-clay: #c9642b; --archive-paper: #fbfaf7; }
+body { background: var(--archive-paper); }
+.navbar, .navbar.bg-primary { background-color: var(--archive-ink) !important; background-image: none !important;
+  border-bottom: 3px solid var(--archive-clay); }
+.navbar .navbar-brand, .navbar .nav-link { color: #f4efe6 !important; }
+h1, h2, h3 { color: var(--archive-ink); }
+a { color: #1b6f8a; }
+table { font-size: 0.9rem; }
+table td, table th { padding: 0.25rem 0.5rem !important; }
+img[src$=".svg"] { max-width: 100%; border: 1px solid #e4e0d8; background: #ffffff; }
+"""
+
+
+def _quarter_chart(data: pages.SiteData) -> bytes:
+    return svg.bar_chart(pages.quarter_counts(data), "tests started per quarter")
+
+
+def generate(
+    records_dir: Path, out: Path, progress: Callable[[str], None] | None = None
+) -> tuple[dict[str, bytes], int]:
+    """Every generated file (path under docs/ -> bytes) and the number of entries computed afresh."""
+    report = check_archive(records_dir)
+    failing = errors(report.problems)
+    if failing:
+        raise ArchiveInvalid(failing)
+    entries, fresh = load_entries(report.records, out / ".cache" / "tests")
+    if progress:
+        progress(f"{len(entries)} tests ({fresh} analysed afresh)")
+    effects: list[Effect] = [e for entry in entries for e in entry.effects]
+    by_theme: PoolResult | None = pool(effects, "theme", permutations=200) if effects else None
+    by_area: PoolResult | None = pool(effects, "page_area", permutations=0) if effects else None
+    data = pages.site_data(entries, by_theme, by_area)
+    files: dict[str, bytes] = {}
+
+    def add(path: str, text: str | bytes) -> None:
+        files[path] = text.encode("utf-8") if isinstance(text, str) else text
+
+    add("index.md", pages.home_page(data))
+    add("assets/tests-per-quarter.svg", _quarter_chart(data))
+    add("assets/archive.css", STYLE)
+    add("tests/index.md", pages.tests_index(data))
+    for entry in entries:
+        add(f"tests/{entry.id}.md", pages.test_page(entry, data))
+        for name, chart in entry.charts.items():
+            add(f"tests/{name}", chart)
+    for kind, pooled in (("themes", by_theme), ("areas", by_area)):
+        add(f"{kind}/index.md", pages.group_index(kind, pooled, data))
+        if pooled is None:
+            continue
+        for group in pooled.groups:
+            name = pages.slug(group.key)
+            add(f"{kind}/{name}.md", pages.group_page(kind, group, data, pooled))
+            add(f"{kind}/{name}-forest.svg", svg.forest_chart(pages.group_chart_rows(group, data), group.key))
+    add("learnings.md", pages.learnings_page(data))
+    add("tags.md", pages.tags_page(data))
+    for name in ("record-fields.md", "analysis-json.md"):
+        add(f"reference/{name}", (REFERENCE / "reference" / name).read_bytes())
+    return files, fresh
+
+
+def write_docs(out: Path, files: dict[str, bytes]) -> tuple[list[str], list[str]]:
+    """Write changed files only; remove generated files that are gone. Returns (written, removed)."""
+    docs = out / "docs"
+    written, removed = [], []
+    for rel, data in sorted(files.items()):
+        target = docs / rel
+        if target.exists() and target.read_bytes() == data:
+            continue
+        write_replace(target, data)
+        written.append(rel)
+    if docs.exists():
+        for path in sorted(docs.rglob("*")):
+            rel = path.relative_to(docs).as_posix()
+            if path.is_file() and rel not in files:
+                path.unlink()
+                removed.append(rel)
+    return written, removed
+
+
+def build_site(
+    records_dir: Path,
+    out: Path,
+    title: str = "Test archive",
+    run_mkdocs: bool = True,
+    progress: Callable[[str], None] | None = None,
+) -> BuildReport:
+    if out.resolve() == records_dir.resolve() or records_dir.resolve() in out.resolve().parents:
+        raise ValueError("build the site outside the records folder")
+    report = BuildReport(out)
+    start = time.perf_counter()
+    files, report.fresh_entries = generate(records_dir, out, progress)
+    report.pages = sum(1 for name in files if name.endswith(".md"))
+    report.written, report.removed = write_docs(out, files)
+    config = out / "mkdocs.yml"
+    text = mkdocs_config(title)
+    if not config.exists() or config.read_text(encoding="utf-8") != text:
+        write_replace(config, text)
+    report.generate_seconds = time.perf_counter() - start
+    if run_mkdocs:
+        from .engine import run_mkdocs_build
+
+        start = time.perf_counter()
+        report.html = run_mkdocs_build(config)
+        report.mkdocs_seconds = time.perf_counter() - start
+    return report

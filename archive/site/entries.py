@@ -1,0 +1,142 @@
+"""What the site needs of each test, computed once per record version and cached by the record's content hash.
+
+An entry holds the record, its effects for pooling, and the rendered pieces of its page that depend on nothing
+but the record itself (the analysis memo in Markdown and the per-test charts). A rebuild after one record changed
+recomputes only that record's entry.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import pickle
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from ..analysis import Analysis, CannotAnalyze, Settings, analyze
+from ..effects import Effect, record_effects_from
+from ..report import build_memo, markdown_sections
+from ..segments import analyze_segments
+from ..stats import bayes
+from ..validate import LoadedRecord
+from . import svg
+
+CACHE_VERSION = "1"
+
+
+@dataclass
+class TestEntry:
+    id: str
+    digest: str
+    record_json: str
+    effects: list[Effect]
+    verdicts: dict[str, str]
+    trusted: bool
+    action: str | None
+    agrees: bool | None
+    disagreement: str | None
+    memo_markdown: str
+    charts: dict[str, bytes] = field(default_factory=dict)  # file name -> SVG
+
+
+def digest_of(loaded: LoadedRecord) -> str:
+    h = hashlib.sha256(CACHE_VERSION.encode())
+    h.update(Path(loaded.path).read_bytes())
+    if loaded.orders is not None:
+        h.update(Path(loaded.orders.path).read_bytes())
+    return h.hexdigest()
+
+
+def _lift_chart(analysis: Analysis, title: str) -> bytes:
+    control = next(a for a in analysis.arms if a.control)
+    post_c = bayes.BetaPosterior.from_counts(control.conversions, control.visitors)
+    curves = []
+    lows = [c.credible_lift_low for c in analysis.comparisons]
+    highs = [c.credible_lift_high for c in analysis.comparisons]
+    span = max(highs) - min(lows)
+    grid = np.linspace(max(-0.99, min(lows) - 0.5 * span), max(highs) + 0.5 * span, 160)
+    for c in analysis.comparisons:
+        arm = next(a for a in analysis.arms if a.name == c.arm)
+        post = bayes.BetaPosterior.from_counts(arm.conversions, arm.visitors)
+        density = bayes.lift_density(post, post_c, grid)
+        curves.append(
+            (
+                f"{c.arm}: P(beats control) {c.prob_beat_control:.2f}",
+                grid.tolist(),
+                density.tolist(),
+                c.credible_lift_low,
+                c.credible_lift_high,
+            )
+        )
+    return svg.density_chart(curves, title)
+
+
+def build_entry(loaded: LoadedRecord, digest: str, settings: Settings) -> TestEntry:
+    record = loaded.record
+    try:
+        analysis = analyze(record, loaded.orders, settings)
+    except CannotAnalyze:
+        return TestEntry(record.id, digest, record.model_dump_json(), [], {}, True, None, None, None, "")
+    dims = list(record.segments)
+    segments = analyze_segments(record, dims, "bh", settings) if dims else None
+    memo = build_memo(analysis, segments)
+    charts = {f"{record.id}-lift.svg": _lift_chart(analysis, f"{record.title}: posterior of the lift")}
+    if segments is not None:
+        for c in analysis.comparisons:
+            rows = []
+            for d in segments.dimensions:
+                for r in d.rows:
+                    if r.arm == c.arm and r.lift is not None and r.lift_low is not None and r.lift_high is not None:
+                        rows.append((f"{d.dimension}: {r.segment}", r.lift, r.lift_low, r.lift_high, False))
+                for m in d.mix_checks:
+                    if m.arm == c.arm and m.adjusted_lift is not None and m.adjusted_low is not None:
+                        rows.append(
+                            (f"{d.dimension}: all", m.adjusted_lift, m.adjusted_low, m.adjusted_high or 0.0, True)
+                        )
+            if rows:
+                charts[f"{record.id}-segments-{c.arm}.svg"] = svg.forest_chart(rows, f"{c.arm} by segment")
+    rec = analysis.recommendation
+    return TestEntry(
+        id=record.id,
+        digest=digest,
+        record_json=record.model_dump_json(),
+        effects=record_effects_from(record, analysis),
+        verdicts={c.arm: c.verdict for c in analysis.comparisons},
+        trusted=analysis.trusted,
+        action=rec.action,
+        agrees=rec.agrees_with_record,
+        disagreement=rec.disagreement,
+        memo_markdown="\n".join(markdown_sections(memo.sections[:-1], level=3)),
+        charts=charts,
+    )
+
+
+def load_entries(
+    records: list[LoadedRecord], cache_dir: Path, settings: Settings | None = None
+) -> tuple[list[TestEntry], int]:
+    """Entries for every record (cached ones reused); returns them and how many were computed afresh."""
+    s = settings or Settings(bootstrap_replicates=400)
+    cache_dir.mkdir(parents=True, exist_ok=True)
+    entries, fresh = [], 0
+    for loaded in records:
+        digest = digest_of(loaded)
+        path = cache_dir / f"{loaded.record.id}.pickle"
+        entry = None
+        if path.exists():
+            try:
+                cached = pickle.loads(path.read_bytes())
+                if isinstance(cached, TestEntry) and cached.digest == digest:
+                    entry = cached
+            except Exception:  # a stale or foreign cache file is simply rebuilt
+                entry = None
+        if entry is None:
+            entry = build_entry(loaded, digest, s)
+            path.write_bytes(pickle.dumps(entry))
+            fresh += 1
+        entries.append(entry)
+    live = {f"{lr.record.id}.pickle" for lr in records}
+    for stale in cache_dir.glob("*.pickle"):
+        if stale.name not in live:
+            stale.unlink()
+    return entries, fresh

@@ -1,0 +1,373 @@
+"""The pages of the site as Markdown text, from test entries and the pooled archive.
+
+Everything taken from a record goes through :func:`archive.report.md_text` (HTML and Markdown escaped, one
+line) and links from records are kept only for http(s). Pages link to each other with relative ``.md`` paths,
+which MkDocs resolves and checks. Output is deterministic: sorted iteration, fixed number formats, no dates
+other than the records' own.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from collections import defaultdict
+from dataclasses import dataclass
+
+from ..pooling import GroupResult, PoolResult
+from ..priors import lift_prior
+from ..record import Record, canonical_label, record_from_json
+from ..report import interval, md_text, pct
+from .entries import TestEntry
+
+
+@dataclass
+class SiteData:
+    entries: list[TestEntry]
+    records: dict[str, Record]
+    by_theme: PoolResult | None
+    by_area: PoolResult | None
+    follow_ups: dict[str, list[str]]
+    shrunk: dict[tuple[str, str], float]  # (record, arm) -> lift shrunk toward its first theme
+
+
+def site_data(entries: list[TestEntry], by_theme: PoolResult | None, by_area: PoolResult | None) -> SiteData:
+    records = {e.id: record_from_json(e.record_json) for e in entries}
+    follow: dict[str, list[str]] = defaultdict(list)
+    for r in records.values():
+        if r.iterates_on:
+            follow[r.iterates_on].append(r.id)
+    shrunk: dict[tuple[str, str], float] = {}
+    if by_theme is not None:
+        first_theme = {rid: r.themes[0] for rid, r in records.items()}
+        for g in by_theme.groups:
+            for m in g.members:
+                if first_theme.get(m.record_id) == g.key:
+                    shrunk[(m.record_id, m.arm)] = m.shrunk_lift
+    return SiteData(entries, records, by_theme, by_area, {k: sorted(v) for k, v in follow.items()}, shrunk)
+
+
+def slug(text: str) -> str:
+    return canonical_label(text) or "unnamed"
+
+
+def test_link(record: Record, prefix: str = "../tests/") -> str:
+    return f"[{md_text(record.title)}]({prefix}{record.id}.md)"
+
+
+def _label_links(values: list[str], folder: str, prefix: str = "../") -> str:
+    return ", ".join(f"[{md_text(v)}]({prefix}{folder}/{slug(v)}.md)" for v in values)
+
+
+def _safe_url(url: str) -> str | None:
+    lowered = url.strip().lower()
+    if not lowered.startswith(("http://", "https://")) or any(c in url for c in "<>\"' ()\n"):
+        return None
+    return url.strip()
+
+
+# --- one page per test ----------------------------------------------------------------------------------
+
+
+def test_page(entry: TestEntry, data: SiteData) -> str:
+    r = data.records[entry.id]
+    out = [f"# {md_text(r.title)}", ""]
+    facts = [
+        f"**{md_text(r.status)}**",
+        f"{r.started or '?'} to {r.ended or '?'}",
+        f"page area {_label_links([r.page_area], 'areas')}",
+        f"themes {_label_links(r.themes, 'themes')}",
+    ]
+    if r.owner:
+        facts.append(f"owner {md_text(r.owner)}")
+    out += [" · ".join(facts), ""]
+    if r.tags:
+        out += ["Tags: " + ", ".join(f"[{md_text(t)}](../tags.md#{slug(t)})" for t in r.tags), ""]
+    out += ["## Hypothesis", "", md_text(r.hypothesis), ""]
+    out += _plan_section(r)
+    if entry.memo_markdown:
+        out += ["## Results", "", f"![Posterior of the lift]({entry.id}-lift.svg)", "", entry.memo_markdown, ""]
+        segment_charts = sorted(name for name in entry.charts if "-segments-" in name)
+        if segment_charts:
+            out += ["### Segment forest plots", ""]
+            out += [f"![{md_text(name)}]({name})" for name in segment_charts]
+            out.append("")
+        out += _realistic_section(entry, data)
+    else:
+        out += ["## Results", "", "No results yet.", ""]
+    out += _decision_section(r, entry)
+    if r.learnings:
+        out += ["## Learnings", "", *[f"- {md_text(item)}" for item in r.learnings], ""]
+    related = []
+    if r.iterates_on and r.iterates_on in data.records:
+        related.append(f"- iterates on {test_link(data.records[r.iterates_on], '')}")
+    for child in data.follow_ups.get(r.id, []):
+        related.append(f"- followed by {test_link(data.records[child], '')}")
+    if related:
+        out += ["## Related tests", "", *related, ""]
+    links = [(link.label, _safe_url(link.url)) for link in r.links]
+    kept = [f"- [{md_text(label)}]({url})" for label, url in links if url]
+    if kept:
+        out += ["## Links", "", *kept, ""]
+    return "\n".join(out).rstrip() + "\n"
+
+
+def _plan_section(r: Record) -> list[str]:
+    if r.plan is None:
+        return ["## Plan", "", "No plan was recorded.", ""]
+    p = r.plan
+    rows = [
+        ("baseline rate", pct(p.baseline_rate, 2) if p.baseline_rate else "not set"),
+        ("smallest lift that matters", pct(p.minimum_lift, 1, True) if p.minimum_lift else "not set"),
+        ("alpha / power", f"{p.alpha:g} / {p.power:.0%}"),
+        ("visitors per arm", f"{p.visitors_per_arm:,}" if p.visitors_per_arm else "not set"),
+        ("days", str(p.days) if p.days else "not set"),
+        ("split", ", ".join(f"{md_text(k)} {v:g}" for k, v in p.split.items()) if p.split else "equal"),
+        ("pre-registered segments", ", ".join(md_text(x) for x in p.segments) or "none"),
+    ]
+    if p.prior is not None:
+        rows.append(("history prior", md_text(f"{p.prior.source}: mean log lift {p.prior.mean_log_lift:+.4f}")))
+    return ["## Plan", "", "| item | planned |", "|---|---|", *[f"| {a} | {b} |" for a, b in rows], ""]
+
+
+def _realistic_section(entry: TestEntry, data: SiteData) -> list[str]:
+    rows = []
+    for e in entry.effects:
+        shrunk = data.shrunk.get((e.record_id, e.arm))
+        rows.append(
+            f"| {md_text(e.arm)} | {pct(e.lift, 1, True)} | {pct(shrunk, 1, True) if shrunk is not None else 'n/a'} |"
+        )
+    if not rows:
+        return []
+    return [
+        "### Realistic lift",
+        "",
+        "The observed lift beside the lift shrunk toward the other tests of its first theme (empirical Bayes): "
+        "what to expect if the change is rolled out.",
+        "",
+        "| arm | observed | shrunk toward the theme |",
+        "|---|---|---|",
+        *rows,
+        "",
+    ]
+
+
+def _decision_section(r: Record, entry: TestEntry) -> list[str]:
+    out = ["## Decision", ""]
+    if r.decision is None:
+        out.append("No decision recorded.")
+    else:
+        arm = f" {md_text(r.decision.arm)}" if r.decision.arm else ""
+        out.append(f"**{md_text(r.decision.outcome)}{arm}**. {md_text(r.decision.rationale)}")
+    if entry.disagreement:
+        out += ["", f"Note: {md_text(entry.disagreement)}"]
+    return out + [""]
+
+
+# --- groups ---------------------------------------------------------------------------------------------
+
+
+def group_page(kind: str, group: GroupResult, data: SiteData, pooled: PoolResult) -> str:
+    noun = "theme" if kind == "themes" else "page area"
+    out = [f"# {md_text(group.key)}", "", f"Every archived test of this {noun}, pooled.", ""]
+    if group.warning:
+        out += [f"**Warning:** {md_text(group.warning)}.", ""]
+    pi = interval(group.prediction_low, group.prediction_high)
+    rows = [
+        ("comparisons (tests)", f"{group.comparisons} ({group.tests})"),
+        ("pooled lift (95% CI)", f"{pct(group.lift, 1, True)} {interval(group.lift_low, group.lift_high)}"),
+        ("next test of this kind (95% prediction interval)", pi),
+        (
+            "tau² between tests [Q-profile]",
+            f"{group.tau2:.5f}"
+            + (f" [{group.tau2_low:.5f}, {group.tau2_high:.5f}]" if group.tau2_high is not None else ""),
+        ),
+        (
+            "I², Q (p)",
+            f"{group.i_squared:.0%}, {group.q:.2f} ({'n/a' if group.q_p_value is None else f'{group.q_p_value:.3g}'})",
+        ),
+        (
+            "winners (Jeffreys 95%), shrunk",
+            f"{group.wins.count}/{group.wins.total} "
+            f"[{pct(group.wins.low, 0)}, {pct(group.wins.high, 0)}], {pct(group.wins.shrunk)}",
+        ),
+        ("shipped", f"{group.shipped.count}/{group.shipped.total}"),
+        ("DerSimonian-Laird comparison", f"{pct(group.dl_lift, 1, True)} {interval(group.dl_low, group.dl_high)}"),
+    ]
+    if kind == "themes":
+        effects = [e for entry in data.entries for e in entry.effects]
+        try:
+            prior = lift_prior(effects, group.key)
+            low, high = prior.interval()
+            rows.append(
+                (
+                    "prior for a new test",
+                    f"{pct(prior.lift, 1, True)} [{pct(low, 1, True)}, {pct(high, 1, True)}], "
+                    f"P(lift > 0) {prior.prob_above(0):.2f}",
+                )
+            )
+        except ValueError:
+            pass
+    out += ["| figure | value |", "|---|---|", *[f"| {a} | {b} |" for a, b in rows], ""]
+    out += [
+        f"![Forest plot]({slug(group.key)}-forest.svg)",
+        "",
+        f"Method: {md_text(pooled.method)}. {md_text(pooled.prediction_convention)}.",
+        "",
+    ]
+    out += [
+        "## Tests",
+        "",
+        "| test | arm | observed lift (95% CI) | shrunk | verdict | shipped |",
+        "|---|---|---|---|---|---|",
+    ]
+    for m in group.members:
+        record = data.records[m.record_id]
+        out.append(
+            f"| {test_link(record)} | {md_text(m.arm)} | {pct(m.lift, 1, True)} {interval(m.low, m.high)} | "
+            f"{pct(m.shrunk_lift, 1, True)} | {md_text(m.verdict)} | {'yes' if m.shipped else ''} |"
+        )
+    out += ["", "## Learnings", ""]
+    seen = []
+    for rid in dict.fromkeys(m.record_id for m in group.members):
+        record = data.records[rid]
+        for item in record.learnings:
+            seen.append(f"- {md_text(item)} ({test_link(record)})")
+    out += seen or ["No learnings recorded."]
+    return "\n".join(out).rstrip() + "\n"
+
+
+def group_chart_rows(group: GroupResult, data: SiteData) -> list[tuple[str, float, float, float, bool]]:
+    rows = [(f"{m.record_id} · {m.arm}", m.lift, m.low, m.high, False) for m in group.members]
+    rows.append(("pooled (95% CI)", group.lift, group.lift_low, group.lift_high, True))
+    if group.prediction_low is not None and group.prediction_high is not None:
+        rows.append(("next test (95% PI)", group.lift, group.prediction_low, group.prediction_high, False))
+    return rows
+
+
+def group_index(kind: str, pooled: PoolResult | None, data: SiteData) -> str:
+    noun = "Themes" if kind == "themes" else "Page areas"
+    out = [f"# {noun}", ""]
+    if pooled is None:
+        return "\n".join([*out, "Nothing to pool yet."]) + "\n"
+    out += [
+        md_text(pooled.ranking) + ".",
+        "",
+        "| group | comparisons | pooled lift (95% CI) | next test (95% PI) | winners |",
+        "|---|---|---|---|---|",
+    ]
+    for g in pooled.groups:
+        out.append(
+            f"| [{md_text(g.key)}]({slug(g.key)}.md) | {g.comparisons} | {pct(g.lift, 1, True)} "
+            f"{interval(g.lift_low, g.lift_high)} | {interval(g.prediction_low, g.prediction_high)} | "
+            f"{g.wins.count}/{g.wins.total} |" + (" few tests |" if g.warning else "")
+        )
+    return "\n".join(out).rstrip() + "\n"
+
+
+# --- archive-wide pages ---------------------------------------------------------------------------------
+
+
+def _sorted_records(data: SiteData) -> list[Record]:
+    return sorted(data.records.values(), key=lambda r: (r.started or dt.date.max, r.id), reverse=True)
+
+
+def tests_index(data: SiteData) -> str:
+    out = [
+        "# Tests",
+        "",
+        "Every filed test, newest first.",
+        "",
+        "| test | started | page area | status | decision | verdicts |",
+        "|---|---|---|---|---|---|",
+    ]
+    by_id = {e.id: e for e in data.entries}
+    for r in _sorted_records(data):
+        verdicts = ", ".join(f"{md_text(a)}: {md_text(v)}" for a, v in sorted(by_id[r.id].verdicts.items()))
+        decision = md_text(r.decision.outcome) if r.decision else ""
+        out.append(
+            f"| {test_link(r, '')} | {r.started or ''} | {md_text(r.page_area)} | {md_text(r.status)} | {decision} | "
+            f"{verdicts} |"
+        )
+    return "\n".join(out).rstrip() + "\n"
+
+
+def learnings_page(data: SiteData) -> str:
+    out = ["# Learnings", "", "What the team learned, by theme (a test with two themes appears under both).", ""]
+    by_theme: dict[str, list[Record]] = defaultdict(list)
+    for r in data.records.values():
+        for theme in r.themes:
+            by_theme[theme].append(r)
+    for theme in sorted(by_theme):
+        out += [f"## {md_text(theme)}", ""]
+        for r in sorted(by_theme[theme], key=lambda x: (x.started or dt.date.min, x.id)):
+            for item in r.learnings:
+                out.append(f"- {md_text(item)} ({test_link(r, 'tests/')})")
+        out.append("")
+    return "\n".join(out).rstrip() + "\n"
+
+
+def tags_page(data: SiteData) -> str:
+    out = ["# Tags", ""]
+    by_tag: dict[str, list[Record]] = defaultdict(list)
+    for r in data.records.values():
+        for tag in r.tags:
+            by_tag[tag].append(r)
+    for tag in sorted(by_tag):
+        out += [f"## {md_text(tag)} {{#{slug(tag)}}}", ""]
+        out += [f"- {test_link(r, 'tests/')}" for r in sorted(by_tag[tag], key=lambda x: x.id)]
+        out.append("")
+    return "\n".join(out).rstrip() + "\n"
+
+
+def home_page(data: SiteData, latest: int = 8) -> str:
+    records = _sorted_records(data)
+    finished = [r for r in records if r.status in ("finished", "stopped-early")]
+    out = ["# The test archive at a glance", ""]
+    pooled = data.by_theme
+    if pooled is not None:
+        prog = pooled.programme
+        fpr = "n/a" if prog.false_positive_risk is None else pct(prog.false_positive_risk)
+        out += [
+            f"{len(finished)} finished tests, {prog.comparisons} comparisons with control. "
+            f"Observed win rate {pct(prog.win_rate.rate)} [{pct(prog.win_rate.low, 0)}, {pct(prog.win_rate.high, 0)}]; "
+            f"estimated false positive risk of a winner {fpr} (Kohavi & Chen 2024, alpha {prog.alpha:g}, "
+            f"assumed power {prog.assumed_power:.0%}).",
+            "",
+        ]
+    out += ["![Tests per quarter](assets/tests-per-quarter.svg)", ""]
+    if pooled is not None:
+        out += [
+            "## What tends to win",
+            "",
+            md_text(pooled.ranking) + ".",
+            "",
+            "| theme | comparisons | pooled lift (95% CI) | next test (95% PI) |",
+            "|---|---|---|---|",
+        ]
+        for g in pooled.groups:
+            out.append(
+                f"| [{md_text(g.key)}](themes/{slug(g.key)}.md) | {g.comparisons} | {pct(g.lift, 1, True)} "
+                f"{interval(g.lift_low, g.lift_high)} | {interval(g.prediction_low, g.prediction_high)} |"
+            )
+        out.append("")
+    out += ["## Latest learnings", ""]
+    shown = 0
+    for r in records:
+        if r.learnings and shown < latest:
+            out.append(f"- {md_text(r.learnings[0])} ({test_link(r, 'tests/')})")
+            shown += 1
+    out += ["", "## Decisions that disagree with the figures", ""]
+    disagreeing = [e for e in data.entries if e.agrees is False]
+    for e in sorted(disagreeing, key=lambda x: x.id):
+        out.append(f"- {test_link(data.records[e.id], 'tests/')}: {md_text(e.disagreement or '')}")
+    if not disagreeing:
+        out.append("None.")
+    out += ["", "Figures assume independent visitors and fixed-horizon tests; see each test's assumptions."]
+    return "\n".join(out).rstrip() + "\n"
+
+
+def quarter_counts(data: SiteData) -> list[tuple[str, int]]:
+    counts: dict[str, int] = defaultdict(int)
+    for r in data.records.values():
+        if r.started:
+            counts[f"{r.started.year} Q{(r.started.month - 1) // 3 + 1}"] += 1
+    return sorted(counts.items())
