@@ -1,0 +1,370 @@
+"""Random-effects meta-analysis of many groups of estimates in one vectorised pass.
+
+The estimators and intervals of :func:`archive.stats.meta.random_effects`, computed for every group at once: the
+estimates are sorted by group once, every sum over a group is an ``np.add.reduceat`` call, and the iterative parts
+(Paule-Mandel, REML, the Q-profile interval of tau^2) advance all groups together by Newton steps kept inside a
+bracket, with bisection when a step would leave it.
+
+An estimate may belong to several groups: the caller repeats it, once per group, with the matching group index.
+"""
+
+from __future__ import annotations
+
+import operator
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import stats
+
+from .meta import ArrayLike, TauMethod, reml_grid
+
+_MAX_ITERATIONS = 300
+_RELATIVE_TOLERANCE = 1e-13
+
+# f(tau2) and df/dtau2 for every group, given one tau2 per group
+_RootFunction = Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]]
+
+
+@dataclass(frozen=True)
+class GroupPooling:
+    """One entry per group in every array. Groups without estimates are NaN throughout (k = 0)."""
+
+    k: np.ndarray  # int
+    tau2: np.ndarray
+    tau2_low: np.ndarray  # Q-profile interval (Viechtbauer 2007); NaN for k < 2
+    tau2_high: np.ndarray
+    mean: np.ndarray
+    se: np.ndarray  # HKSJ standard error where that interval is used, else the plain random-effects one
+    low: np.ndarray
+    high: np.ndarray
+    p_value: np.ndarray
+    prediction_low: np.ndarray  # Higgins, Thompson & Spiegelhalter (2009); NaN for k < 3
+    prediction_high: np.ndarray
+    q: np.ndarray  # Cochran's Q (fixed-effect weights)
+    df: np.ndarray  # k - 1
+    q_p_value: np.ndarray  # NaN for k < 2
+    i_squared: np.ndarray  # fraction, 0..1
+    fixed_mean: np.ndarray
+    fixed_se: np.ndarray
+    method: str
+    interval_kind: str  # "HKSJ (t, k-1 df); normal where k = 1" or "normal"
+
+    @property
+    def n_groups(self) -> int:
+        return len(self.k)
+
+
+class _Groups:
+    """Group-wise reductions of per-estimate arrays that are sorted by group (contiguous runs, ``np.add.reduceat``)."""
+
+    def __init__(self, sorted_index: np.ndarray, n_groups: int) -> None:
+        self.n = n_groups
+        self.k = np.bincount(sorted_index, minlength=n_groups)
+        self.nonempty = self.k > 0
+        self.all_nonempty = bool(self.nonempty.all())
+        self.starts = (np.cumsum(self.k) - self.k)[self.nonempty]
+
+    def _reduce(self, ufunc: np.ufunc, x: np.ndarray, empty: float) -> np.ndarray:
+        if len(x) == 0:
+            return np.full(self.n, empty)
+        reduced = ufunc.reduceat(x, self.starts)
+        if self.all_nonempty:
+            return np.asarray(reduced, dtype=float)
+        out = np.full(self.n, empty)
+        out[self.nonempty] = reduced
+        return out
+
+    def sum(self, x: np.ndarray) -> np.ndarray:
+        return self._reduce(np.add, x, 0.0)
+
+    def minimum(self, x: np.ndarray) -> np.ndarray:
+        return self._reduce(np.minimum, x, np.inf)
+
+    def maximum(self, x: np.ndarray) -> np.ndarray:
+        return self._reduce(np.maximum, x, -np.inf)
+
+    def spread(self, per_group: np.ndarray) -> np.ndarray:
+        """Each group's value repeated for each of its estimates."""
+        return np.repeat(per_group, self.k)
+
+
+def _validate(
+    effects: ArrayLike, variances: ArrayLike, group_index: Sequence[int] | np.ndarray, n_groups: int
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, int]:
+    y = np.asarray(effects, dtype=float)
+    v = np.asarray(variances, dtype=float)
+    g = np.asarray(group_index)
+    if y.ndim != 1 or y.shape != v.shape or y.shape != g.shape:
+        raise ValueError("effects, variances and group_index must be 1-d sequences of the same length")
+    try:
+        n = operator.index(n_groups)
+    except TypeError:
+        raise ValueError("n_groups must be an integer") from None
+    if n < 0:
+        raise ValueError("n_groups must be >= 0")
+    if np.any(~np.isfinite(y)) or np.any(~np.isfinite(v)) or np.any(v <= 0):
+        raise ValueError("effects must be finite and variances finite and > 0")
+    if g.size:
+        if not np.issubdtype(g.dtype, np.integer):
+            raise ValueError("group_index must hold integers")
+        if g.min() < 0 or g.max() >= n:
+            raise ValueError("group_index values must lie in 0 .. n_groups - 1")
+    return y, v, g.astype(np.intp), n
+
+
+def _bracketed_newton(
+    fn: _RootFunction, lo: np.ndarray, hi: np.ndarray, active: np.ndarray, atol: np.ndarray
+) -> np.ndarray:
+    """A root of fn in [lo, hi] for every active group, given fn(lo) > 0 > fn(hi).
+
+    Newton steps from lo; a step landing outside the current bracket is replaced by bisection, and every new point
+    narrows the bracket. Stops per group when a step or the bracket is below 1e-13 relative (plus atol).
+    """
+    lo, hi = lo.copy(), hi.copy()
+    x = np.where(active, lo, 0.0)
+    f, slope = fn(x)
+    todo = active.copy()
+    for _ in range(_MAX_ITERATIONS):
+        if not todo.any():
+            break
+        candidate = x - f / slope
+        inside = (candidate > lo) & (candidate < hi)
+        candidate = np.where(inside, candidate, 0.5 * (lo + hi))
+        new = np.where(todo, candidate, x)
+        f_new, slope_new = fn(new)
+        lo = np.where(todo & (f_new > 0), new, lo)
+        hi = np.where(todo & (f_new < 0), new, hi)
+        tolerance = _RELATIVE_TOLERANCE * new + atol
+        done = (f_new == 0) | (np.abs(new - x) <= tolerance) | (hi - lo <= tolerance)
+        x, f, slope = new, f_new, slope_new
+        todo &= ~done
+    return x
+
+
+class _Model:
+    """Generalised Q and the REML score of every group, at one tau^2 per group."""
+
+    def __init__(self, groups: _Groups, y: np.ndarray, v: np.ndarray) -> None:
+        self.groups, self.y, self.v = groups, y, v
+
+    def _weights(self, tau2: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        s = self.groups
+        w = 1 / (self.v + s.spread(tau2))
+        sw = s.sum(w)
+        mean = s.sum(w * self.y) / sw
+        return w, sw, self.y - s.spread(mean)
+
+    def generalised_q(self, tau2: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Q(tau2) = sum w (y - mu)^2 and dQ/dtau2 = -sum w^2 (y - mu)^2 (mu minimises Q, so its change drops out)."""
+        w, _, r = self._weights(tau2)
+        wr2 = w * r * r
+        return self.groups.sum(wr2), -self.groups.sum(w * wr2)
+
+    def _reml_parts(self, tau2: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        s = self.groups
+        w, sw, r = self._weights(tau2)
+        e = w * r  # P y
+        sw2 = s.sum(w * w)
+        return s.sum(e * e) - (sw - sw2 / sw), w, e, sw, sw2
+
+    def reml_score(self, tau2: np.ndarray) -> np.ndarray:
+        """Twice the restricted score: y'PPy - tr(P) = sum w^2 (y - mu)^2 - (sum w - sum w^2 / sum w)."""
+        return self._reml_parts(tau2)[0]
+
+    def reml_score_and_slope(self, tau2: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Twice the restricted score and its derivative in tau^2, -2 y'PPPy + tr(PP) (as dP/dtau^2 = -PP)."""
+        s = self.groups
+        score, w, e, sw, sw2 = self._reml_parts(tau2)
+        e_p_e = s.sum(w * e * e) - s.sum(w * e) ** 2 / sw
+        tr_pp = sw2 - 2 * s.sum(w * w * w) / sw + (sw2 / sw) ** 2
+        return score, -2 * e_p_e + tr_pp
+
+    def negative_restricted_loglik(self, tau2: np.ndarray) -> np.ndarray:
+        w, sw, r = self._weights(tau2)
+        s = self.groups
+        return 0.5 * (s.sum(np.log(self.v + s.spread(tau2))) + np.log(sw) + s.sum(w * r * r))
+
+
+def _solve_q(
+    model: _Model, target: np.ndarray, q0: np.ndarray, active: np.ndarray, k_var_y: np.ndarray, atol: np.ndarray
+) -> np.ndarray:
+    """tau^2 with generalised Q(tau^2) = target; 0 where Q(0) <= target.
+
+    Q decreases in tau^2, so the root is unique. Upper bracket: Q(t) <= sum (y - ybar)^2 / t = k var(y) / t (the
+    weighted mean minimises Q, every weight is <= 1/t), so Q < target at t = 2 k var(y) / target. Newton runs on
+    1/target - 1/Q(t), which is close to linear in t where Q behaves like a / (b + t), so few steps are needed.
+    """
+    solve = active & (q0 > target)
+    hi = np.where(solve, 2 * k_var_y / target, 1.0)
+
+    def fn(t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        q, slope = model.generalised_q(t)
+        return 1 / target - 1 / q, slope / (q * q)
+
+    root = _bracketed_newton(fn, np.zeros_like(hi), hi, solve, atol)
+    return np.where(solve, root, 0.0)
+
+
+def _tau2_reml(
+    model: _Model, active: np.ndarray, v_min: np.ndarray, v_max: np.ndarray, var_y: np.ndarray, atol: np.ndarray
+) -> np.ndarray:
+    """REML per group, as :func:`archive.stats.meta.tau2_reml`: the best local maximum of the restricted likelihood.
+
+    The score is scanned on the same grid (one pass per grid point, all groups together); each sign change from
+    + to - is solved; when a group has several, they are solved in rounds (first bracket of every group, then the
+    second, ...) and the one with the highest likelihood kept, with tau^2 = 0 a candidate where the score there is
+    <= 0.
+    """
+    n = len(active)
+    # groups with k < 2 get a harmless grid; they are masked out below
+    inner = reml_grid(np.where(active, v_min, 1.0), np.where(active, v_max, 1.0), np.where(active, var_y, 1.0))
+    grid = np.concatenate([np.zeros((n, 1)), inner], axis=1)
+    scores = np.empty_like(grid)
+    for j in range(grid.shape[1]):
+        scores[:, j] = model.reml_score(grid[:, j])
+    brackets = (scores[:, :-1] > 0) & (scores[:, 1:] <= 0) & active[:, None]
+    best = np.zeros(n)
+    best_nll = np.where(active & (scores[:, 0] <= 0), model.negative_restricted_loglik(np.zeros(n)), np.inf)
+    rank = np.cumsum(brackets, axis=1)
+    rows = np.arange(n)
+    for r in range(1, int(rank[:, -1].max(initial=0)) + 1):
+        chosen = brackets & (rank == r)
+        has = chosen.any(axis=1)
+        j = chosen.argmax(axis=1)
+        lo, hi = grid[rows, j], grid[rows, j + 1]
+        at_grid_point = has & (scores[rows, j + 1] == 0)
+        root = _bracketed_newton(model.reml_score_and_slope, lo, hi, has & ~at_grid_point, atol)
+        root = np.where(at_grid_point, hi, np.where(has, root, 0.0))
+        value = np.where(has, model.negative_restricted_loglik(root), np.inf)
+        better = value < best_nll
+        best = np.where(better, root, best)
+        best_nll = np.where(better, value, best_nll)
+    return best
+
+
+def _by_distinct(fn: Callable[[np.ndarray], np.ndarray], x: np.ndarray) -> np.ndarray:
+    """fn(x) computed once per distinct value (quantiles by degrees of freedom: few distinct values, many groups)."""
+    distinct, inverse = np.unique(x, return_inverse=True)
+    return np.asarray(fn(distinct), dtype=float)[inverse]
+
+
+def pool_groups(
+    effects: ArrayLike,
+    variances: ArrayLike,
+    group_index: Sequence[int] | np.ndarray,
+    n_groups: int,
+    method: TauMethod = "REML",
+    hksj: bool = True,
+    confidence: float = 0.95,
+) -> GroupPooling:
+    """Random-effects pooling of every group: ``effects[i]`` (variance ``variances[i]``) belongs to group
+    ``group_index[i]`` in 0 .. n_groups - 1. Group by group the result equals
+    ``random_effects(effects[group_index == j], variances[group_index == j], method, hksj, confidence)``, with None
+    there as NaN here."""
+    y, v, g, n = _validate(effects, variances, group_index, n_groups)
+    if method not in ("DL", "PM", "REML"):
+        raise ValueError(f"unknown tau^2 method {method!r}; use DL, PM or REML")
+    if not 0 < confidence < 1:
+        raise ValueError("confidence must lie strictly between 0 and 1")
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        return _pool(y, v, g, n, method, hksj, confidence)
+
+
+def _pool(
+    y: np.ndarray, v: np.ndarray, g: np.ndarray, n: int, method: str, hksj: bool, confidence: float
+) -> GroupPooling:
+    if len(g) > 1 and not bool(np.all(g[1:] >= g[:-1])):
+        # a stable sort of small integers is a radix sort in numpy: several times faster than on int64
+        order = np.argsort(g.astype(np.uint16) if n <= 1 << 16 else g, kind="stable")
+        y, v, g = y[order], v[order], g[order]
+    s = _Groups(g, n)
+    model = _Model(s, y, v)
+    k = s.k.astype(int)
+    some, multi = k >= 1, k >= 2
+    df = np.where(some, k - 1, np.nan).astype(float)
+    nan = np.full(n, np.nan)
+
+    # fixed effect and Cochran's Q
+    w0 = 1 / v
+    sw0 = s.sum(w0)
+    fixed_mean = s.sum(w0 * y) / sw0
+    fixed_se = np.sqrt(1 / sw0)
+    q = s.sum(w0 * (y - s.spread(fixed_mean)) ** 2)
+    q_p_value = nan.copy()
+    q_p_value[multi] = stats.chi2.sf(q[multi], df[multi])
+    # I^2 = max(0, (Q - df) / Q); 0 when Q = 0 or df = 0 (one estimate: Q is 0 up to rounding)
+    i_squared = np.where((q > 0) & multi, np.maximum(0.0, (q - df) / q), 0.0)
+
+    # scales for the iterations: the population variance of y (the scalar code's np.var), the extreme v
+    y_bar = s.sum(y) / k
+    var_y = s.sum((y - s.spread(y_bar)) ** 2) / k
+    v_min, v_max = s.minimum(v), s.maximum(v)
+    k_var_y = np.where(multi, k * var_y, 0.0)
+    atol = np.where(some, 1e-15 * v_min, 0.0)  # below the rounding noise of a root near 0
+
+    if method == "DL":
+        c = sw0 - s.sum(w0 * w0) / sw0
+        tau2 = np.where(multi & (c > 0), np.maximum(0.0, (q - df) / c), 0.0)
+    elif method == "PM":
+        tau2 = _solve_q(model, np.where(multi, df, 1.0), q, multi, k_var_y, atol)
+    else:
+        tau2 = _tau2_reml(model, multi, v_min, v_max, var_y, atol)
+    tau2 = np.where(some, tau2, 0.0)
+
+    # random-effects mean; HKSJ: se * sqrt(q_hk), q_hk = sum w (y - mu)^2 / (k - 1) not truncated at 1, t with k-1 df
+    w = 1 / (v + s.spread(tau2))
+    sw = s.sum(w)
+    mean = s.sum(w * y) / sw
+    se_plain = np.sqrt(1 / sw)
+    tail = 0.5 + confidence / 2
+    use_t = multi if hksj else np.zeros(n, dtype=bool)
+    use_z = some & ~use_t
+    q_hk = s.sum(w * (y - s.spread(mean)) ** 2) / df
+    se = np.where(use_t, se_plain * np.sqrt(q_hk), se_plain)
+    crit = nan.copy()
+    crit[use_t] = _by_distinct(lambda d: stats.t.ppf(tail, d), df[use_t])
+    crit[use_z] = stats.norm.ppf(tail)
+    p_value = nan.copy()
+    z = np.abs(mean / se)
+    p_value[use_t] = np.where(se[use_t] > 0, 2 * stats.t.sf(z[use_t], df[use_t]), 0.0)
+    p_value[use_z] = 2 * stats.norm.sf(z[use_z])
+
+    # prediction interval: mean +/- t_{k-2} sqrt(tau2 + SE^2), with the plain (not HKSJ) SE
+    three = k >= 3
+    half = nan.copy()
+    half[three] = _by_distinct(lambda d: stats.t.ppf(tail, d), k[three] - 2.0) * np.sqrt(
+        tau2[three] + se_plain[three] ** 2
+    )
+
+    # Q-profile interval of tau^2: the generalised Q equal to the chi-square (k-1) quantiles
+    upper_q, lower_q = nan.copy(), nan.copy()
+    upper_q[multi] = _by_distinct(lambda d: stats.chi2.ppf(tail, d), df[multi])
+    lower_q[multi] = _by_distinct(lambda d: stats.chi2.ppf(0.5 - confidence / 2, d), df[multi])
+    tau2_low = _solve_q(model, np.where(multi, upper_q, 1.0), q, multi, k_var_y, atol)
+    tau2_high = _solve_q(model, np.where(multi, lower_q, 1.0), q, multi, k_var_y, atol)
+
+    def group_values(x: np.ndarray, valid: np.ndarray = some) -> np.ndarray:
+        return np.where(valid, x, np.nan).astype(float)
+
+    return GroupPooling(
+        k=k,
+        tau2=group_values(tau2),
+        tau2_low=group_values(tau2_low, multi),
+        tau2_high=group_values(tau2_high, multi),
+        mean=group_values(mean),
+        se=group_values(se),
+        low=group_values(mean - crit * se),
+        high=group_values(mean + crit * se),
+        p_value=group_values(p_value),
+        prediction_low=group_values(mean - half, three),
+        prediction_high=group_values(mean + half, three),
+        q=group_values(q),
+        df=df,
+        q_p_value=q_p_value,
+        i_squared=group_values(i_squared),
+        fixed_mean=group_values(fixed_mean),
+        fixed_se=group_values(fixed_se),
+        method=method,
+        interval_kind="HKSJ (t, k-1 df); normal where k = 1" if hksj else "normal",
+    )
