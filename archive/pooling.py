@@ -106,6 +106,7 @@ class GroupResult:
     lift_low: float
     lift_high: float
     p_value: float
+    log_se_plain: float  # random-effects SE of the log mean without the HKSJ factor
     tau2: float
     tau2_low: float | None
     tau2_high: float | None
@@ -278,6 +279,7 @@ def _group(key: str, items: list[Effect], method: str, hksj: bool) -> GroupResul
         lift_low=exp(re.low) - 1,
         lift_high=exp(re.high) - 1,
         p_value=re.p_value,
+        log_se_plain=math.sqrt(1 / float(np.sum(1 / (v + re.tau2)))),
         tau2=re.tau2,
         tau2_low=re.tau2_low,
         tau2_high=re.tau2_high,
@@ -367,7 +369,7 @@ def _between(groups: list[GroupResult]) -> BetweenGroups | None:
     if len(usable) < 2:
         return None
     y = np.array([math.log1p(g.lift) for g in usable])
-    se = np.array([(math.log1p(g.lift_high) - math.log1p(g.lift_low)) / (2 * 1.959963984540054) for g in usable])
+    se = np.array([g.log_se_plain for g in usable])
     het = heterogeneity(y, se**2)
     return BetweenGroups(het.q, het.df, het.p_value)
 
