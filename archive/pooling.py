@@ -22,7 +22,8 @@ from scipy import optimize, special, stats
 
 from .analysis import json_safe
 from .effects import Effect
-from .stats.meta import heterogeneity, random_effects
+from .stats.meta import heterogeneity
+from .stats.meta_groups import GroupPooling, pool_groups
 
 MIN_GROUP = 5  # fewer comparisons than this: shown with a warning (common practice for random-effects pooling)
 GROUPINGS = ("theme", "page_area", "theme,page_area", "tag", "year", "segment")
@@ -212,7 +213,13 @@ def pool(
     for e in used:
         for key in key_of(e):
             members[key].append(e)
-    groups = [_group(key, items, method, hksj) for key, items in members.items()]
+    names = sorted(members)
+    y = np.array([e.log_rr for name in names for e in members[name]])
+    v = np.array([e.variance for name in names for e in members[name]])
+    index = np.repeat(np.arange(len(names)), [len(members[name]) for name in names])
+    re = pool_groups(y, v, index, len(names), method, hksj=hksj)  # type: ignore[arg-type]
+    dl = pool_groups(y, v, index, len(names), "DL", hksj=False)
+    groups = [_group(name, members[name], re, dl, i) for i, name in enumerate(names)]
     _shrink_rates(groups)
     groups.sort(key=lambda g: (-g.lift_low, g.key))
     return PoolResult(
@@ -244,17 +251,22 @@ def pool(
     )
 
 
-def _group(key: str, items: list[Effect], method: str, hksj: bool) -> GroupResult:
-    y = np.array([e.log_rr for e in items])
+def _value(array: np.ndarray, i: int) -> float | None:
+    value = float(array[i])
+    return value if math.isfinite(value) else None
+
+
+def _group(key: str, items: list[Effect], re: GroupPooling, dl: GroupPooling, i: int) -> GroupResult:
+    """One group's result from the vectorised pooling of all groups (row ``i``)."""
+    tau2 = float(re.tau2[i])
+    mean = float(re.mean[i])
     v = np.array([e.variance for e in items])
-    re = random_effects(y, v, method, hksj=hksj)  # type: ignore[arg-type]
-    dl = random_effects(y, v, "DL", hksj=False)
+    se_plain = math.sqrt(1 / float(np.sum(1 / (v + tau2))))
     z = float(stats.norm.ppf(0.975))
-    shrink = 0.0 if re.tau2 == 0 else None
     members = []
     for e in items:
-        weight = shrink if shrink is not None else (1 / e.variance) / (1 / e.variance + 1 / re.tau2)
-        posterior = weight * e.log_rr + (1 - weight) * re.mean
+        weight = 0.0 if tau2 == 0 else (1 / e.variance) / (1 / e.variance + 1 / tau2)
+        posterior = weight * e.log_rr + (1 - weight) * mean
         members.append(
             Member(
                 e.record_id,
@@ -268,30 +280,29 @@ def _group(key: str, items: list[Effect], method: str, hksj: bool) -> GroupResul
             )
         )
     k = len(items)
-    tests = len({e.record_id for e in items})
     warning = None if k >= MIN_GROUP else f"only {k} comparison(s): the pooled figures are fragile"
-    exp = math.exp
+    pred_low, pred_high = _value(re.prediction_low, i), _value(re.prediction_high, i)
     return GroupResult(
         key=key,
         comparisons=k,
-        tests=tests,
-        lift=exp(re.mean) - 1,
-        lift_low=exp(re.low) - 1,
-        lift_high=exp(re.high) - 1,
-        p_value=re.p_value,
-        log_se_plain=math.sqrt(1 / float(np.sum(1 / (v + re.tau2)))),
-        tau2=re.tau2,
-        tau2_low=re.tau2_low,
-        tau2_high=re.tau2_high,
-        i_squared=re.i_squared,
-        q=re.q,
-        q_p_value=re.q_p_value,
-        prediction_low=None if re.prediction_low is None else exp(re.prediction_low) - 1,
-        prediction_high=None if re.prediction_high is None else exp(re.prediction_high) - 1,
-        dl_lift=exp(dl.mean) - 1,
-        dl_low=exp(dl.low) - 1,
-        dl_high=exp(dl.high) - 1,
-        dl_tau2=dl.tau2,
+        tests=len({e.record_id for e in items}),
+        lift=math.expm1(mean),
+        lift_low=math.expm1(float(re.low[i])),
+        lift_high=math.expm1(float(re.high[i])),
+        p_value=float(re.p_value[i]),
+        log_se_plain=se_plain,
+        tau2=tau2,
+        tau2_low=_value(re.tau2_low, i),
+        tau2_high=_value(re.tau2_high, i),
+        i_squared=float(re.i_squared[i]),
+        q=float(re.q[i]),
+        q_p_value=_value(re.q_p_value, i),
+        prediction_low=None if pred_low is None else math.expm1(pred_low),
+        prediction_high=None if pred_high is None else math.expm1(pred_high),
+        dl_lift=math.expm1(float(dl.mean[i])),
+        dl_low=math.expm1(float(dl.low[i])),
+        dl_high=math.expm1(float(dl.high[i])),
+        dl_tau2=float(dl.tau2[i]),
         wins=jeffreys(sum(e.verdict == "winner" for e in items), k),
         shipped=jeffreys(sum(e.shipped for e in items), k),
         warning=warning,
