@@ -55,7 +55,7 @@ def _lift_chart(analysis: Analysis, title: str) -> bytes:
     lows = [c.credible_lift_low for c in analysis.comparisons]
     highs = [c.credible_lift_high for c in analysis.comparisons]
     span = max(highs) - min(lows)
-    grid = np.linspace(max(-0.99, min(lows) - 0.5 * span), max(highs) + 0.5 * span, 160)
+    grid = np.linspace(max(-0.99, min(lows) - 0.5 * span), max(highs) + 0.5 * span, 90)
     for c in analysis.comparisons:
         arm = next(a for a in analysis.arms if a.name == c.arm)
         post = bayes.BetaPosterior.from_counts(arm.conversions, arm.visitors)

@@ -6,7 +6,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
+from scipy import special
 
 
 @dataclass(frozen=True)
@@ -32,11 +32,13 @@ def sample_ratio_test(visitors: Sequence[int], planned_weights: Sequence[float])
         raise ValueError("no visitors")
     shares = weights / weights.sum()
     expected = total * shares
-    result = stats.chisquare(observed, expected)
+    # Pearson's statistic written out (scipy.stats.chisquare gives the same; its wrapper costs ~1 ms a call)
+    statistic = float(np.sum((observed - expected) ** 2 / expected))
+    df = len(observed) - 1
     return SampleRatio(
-        float(result.statistic),
-        len(observed) - 1,
-        float(result.pvalue),
+        statistic,
+        df,
+        float(special.chdtrc(df, statistic)),
         tuple(float(e) for e in expected),
         tuple(float(o) for o in observed / total),
         tuple(float(s) for s in shares),
