@@ -124,13 +124,13 @@ def test_index_list_search_show(records_dir: Path, tmp_path: Path) -> None:
     assert code == 0 and "2 unchanged" in err
     code, out, _ = run("list", *common, "--theme", "social-proof", "--format", "json")
     assert code == 0 and [t["id"] for t in json.loads(out)] == ["free-delivery-bar"]
-    code, out, _ = run("search", "gift", *common, "--format", "csv")
+    code, out, _ = run("search", "gift", *common, "--csv")
     assert code == 0
     lines = out.strip().splitlines()
     assert lines[0].startswith("id,title,status") and lines[1].startswith("free-delivery-bar-2,")
     code, out, _ = run("show", "free-delivery-bar", *common)
     assert code == 0 and "threshold-bar" in out and "3.40%" in out and "Decision: ship threshold-bar" in out
-    code, out, _ = run("show", "free-delivery-bar", *common, "--format", "json")
+    code, out, _ = run("show", "free-delivery-bar", *common, "--json")
     assert json.loads(out)["arms"][1]["visitors"] == 10050
     code, _, err = run("show", "no-such-test", *common)
     assert code == 1 and "no test 'no-such-test'" in err

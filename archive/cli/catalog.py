@@ -14,7 +14,20 @@ from ..database import make_engine, prepare, resolve_url
 from ..index import index_archive
 from ..query import LIST_COLUMNS, Filters, find_tests, get_record, index_size
 from ..record import Record
-from .common import DbOption, Format, FormatOption, RecordsOption, emit_rows, err, out, show_progress, user_errors
+from .common import (
+    CsvFlag,
+    DbOption,
+    Format,
+    FormatOption,
+    JsonFlag,
+    RecordsOption,
+    chosen_format,
+    emit_rows,
+    err,
+    out,
+    show_progress,
+    user_errors,
+)
 
 ThemeOpt = Annotated[str | None, typer.Option("--theme", help="Only tests with this theme.")]
 AreaOpt = Annotated[str | None, typer.Option("--page-area", help="Only tests on this page area.")]
@@ -91,11 +104,14 @@ def list_tests(
     since: SinceOpt = None,
     until: UntilOpt = None,
     fmt: FormatOption = Format.table,
+    as_json: JsonFlag = False,
+    as_csv: CsvFlag = False,
     records: RecordsOption = Path("records"),
     db: DbOption = None,
 ) -> None:
     """List indexed tests, filtered by theme, page area, status, outcome, owner, tag or dates."""
-    _query(records, db, _filters(theme, page_area, status, outcome, owner, tag, since, until), fmt, "Tests")
+    filters = _filters(theme, page_area, status, outcome, owner, tag, since, until)
+    _query(records, db, filters, chosen_format(fmt, as_json, as_csv), "Tests")
 
 
 def search(
@@ -109,21 +125,25 @@ def search(
     since: SinceOpt = None,
     until: UntilOpt = None,
     fmt: FormatOption = Format.table,
+    as_json: JsonFlag = False,
+    as_csv: CsvFlag = False,
     records: RecordsOption = Path("records"),
     db: DbOption = None,
 ) -> None:
     """Find tests whose title, hypothesis or learnings contain every word of TEXT."""
     filters = _filters(theme, page_area, status, outcome, owner, tag, since, until, words)
-    _query(records, db, filters, fmt, f"Tests matching {words!r}")
+    _query(records, db, filters, chosen_format(fmt, as_json, as_csv), f"Tests matching {words!r}")
 
 
 def show(
     record_id: Annotated[str, typer.Argument(metavar="ID", help="Id of the test.")],
     fmt: Annotated[Format, typer.Option("--format", "-f", help="table (readable) or json.")] = Format.table,
+    as_json: JsonFlag = False,
     records: RecordsOption = Path("records"),
     db: DbOption = None,
 ) -> None:
     """Show one indexed test: what was tried, the numbers, the decision and the learnings."""
+    fmt = chosen_format(fmt, as_json)
     with user_errors():
         engine = make_engine(resolve_url(records, db))
         prepare(engine)

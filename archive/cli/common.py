@@ -44,6 +44,15 @@ class Format(StrEnum):
 
 
 FormatOption = Annotated[Format, typer.Option("--format", "-f", help="table for people, json or csv for programs.")]
+JsonFlag = Annotated[bool, typer.Option("--json", help="Same as --format json.")]
+CsvFlag = Annotated[bool, typer.Option("--csv", help="Same as --format csv.")]
+
+
+def chosen_format(fmt: Format, as_json: bool = False, as_csv: bool = False) -> Format:
+    if as_json and as_csv:
+        raise typer.BadParameter("give --json or --csv, not both")
+    return Format.json if as_json else Format.csv if as_csv else fmt
+
 
 out = Console(highlight=False, soft_wrap=True)
 if not out.is_terminal:  # piped or captured: wide tables rather than folded cells
