@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import hashlib
 import pickle
+from collections.abc import Hashable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -16,10 +17,14 @@ import numpy as np
 
 from ..analysis import Analysis, CannotAnalyze, Settings, analyze
 from ..effects import Effect, record_effects_from
+from ..orders import orders_path
+from ..problems import ArchiveInvalid, Problem, errors
+from ..record import record_from_json
 from ..report import build_memo, markdown_sections
 from ..segments import analyze_segments
 from ..stats import bayes
-from ..validate import LoadedRecord
+from ..validate import LoadedRecord, Summary, archive_problems, load_record, record_files
+from ..yamlsource import YamlDocument, YamlProblem, read_yaml
 from . import svg
 
 CACHE_VERSION = "1"
@@ -40,11 +45,13 @@ class TestEntry:
     charts: dict[str, bytes] = field(default_factory=dict)  # file name -> SVG
 
 
-def digest_of(loaded: LoadedRecord) -> str:
+def digest_of(path: Path, raw: bytes, orders_file: str | None) -> str:
+    """Content hash of a record and its orders file (the cache key of its entry)."""
     h = hashlib.sha256(CACHE_VERSION.encode())
-    h.update(Path(loaded.path).read_bytes())
-    if loaded.orders is not None:
-        h.update(Path(loaded.orders.path).read_bytes())
+    h.update(raw)
+    if orders_file:
+        target = orders_path(path, orders_file)
+        h.update(target.read_bytes() if target is not None and target.is_file() else b"missing")
     return h.hexdigest()
 
 
@@ -112,31 +119,64 @@ def build_entry(loaded: LoadedRecord, digest: str, settings: Settings) -> TestEn
     )
 
 
+def _read_cache(path: Path) -> TestEntry | None:
+    if not path.exists():
+        return None
+    try:
+        cached = pickle.loads(path.read_bytes())
+    except Exception:  # a stale or foreign cache file is simply rebuilt
+        return None
+    return cached if isinstance(cached, TestEntry) else None
+
+
 def load_entries(
-    records: list[LoadedRecord], cache_dir: Path, settings: Settings | None = None
-) -> tuple[list[TestEntry], int]:
-    """Entries for every record (cached ones reused); returns them and how many were computed afresh."""
+    records_dir: Path, cache_dir: Path, settings: Settings | None = None
+) -> tuple[list[TestEntry], list[Problem], int]:
+    """Entries for every record, reusing cached ones whose files did not change (those are not parsed again).
+    Returns the entries, the problems found (changed files and archive-wide checks) and how many were fresh.
+    Raises :class:`ArchiveInvalid` when the archive has errors."""
     s = settings or Settings(bootstrap_replicates=400)
     cache_dir.mkdir(parents=True, exist_ok=True)
-    entries, fresh = [], 0
-    for loaded in records:
-        digest = digest_of(loaded)
-        path = cache_dir / f"{loaded.record.id}.pickle"
-        entry = None
-        if path.exists():
-            try:
-                cached = pickle.loads(path.read_bytes())
-                if isinstance(cached, TestEntry) and cached.digest == digest:
-                    entry = cached
-            except Exception:  # a stale or foreign cache file is simply rebuilt
-                entry = None
-        if entry is None:
-            entry = build_entry(loaded, digest, s)
-            path.write_bytes(pickle.dumps(entry))
-            fresh += 1
+    entries: list[TestEntry] = []
+    problems: list[Problem] = []
+    summaries: list[Summary] = []
+    docs: dict[str, YamlDocument] = {}
+    failed: list[str] = []
+    fresh = 0
+    for path in record_files(records_dir):
+        raw = path.read_bytes()
+        cache_file = cache_dir / f"{path.stem}.pickle"
+        cached = _read_cache(cache_file)
+        record = record_from_json(cached.record_json) if cached is not None else None
+        if cached is not None and record is not None and cached.digest == digest_of(path, raw, record.orders_file):
+            entries.append(cached)
+            summaries.append(Summary.of(str(path), record))
+            continue
+        loaded, found = load_record(path, raw)
+        problems += found
+        if loaded is None or errors(found):
+            failed.append(path.stem)
+            continue
+        docs[loaded.path] = loaded.doc
+        summaries.append(loaded.summary)
+        entry = build_entry(loaded, digest_of(path, raw, loaded.record.orders_file), s)
+        cache_file.write_bytes(pickle.dumps(entry))
         entries.append(entry)
-    live = {f"{lr.record.id}.pickle" for lr in records}
+        fresh += 1
+
+    def line_of(where: str, loc: Sequence[Hashable]) -> int:
+        if where not in docs:
+            try:
+                docs[where] = read_yaml(Path(where))
+            except YamlProblem:
+                return 0
+        return docs[where].line_of(loc)
+
+    problems += archive_problems(summaries, line_of, failed)
+    if errors(problems):
+        raise ArchiveInvalid(problems)
+    live = {f"{e.id}.pickle" for e in entries}
     for stale in cache_dir.glob("*.pickle"):
         if stale.name not in live:
             stale.unlink()
-    return entries, fresh
+    return entries, sorted(problems), fresh
