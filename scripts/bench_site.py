@@ -66,14 +66,16 @@ def main() -> None:
         return
     rows = []
     for count in args.counts:
-        done = subprocess.run([sys.executable, __file__, "--one", str(count)], capture_output=True, text=True, check=True)
+        command = [sys.executable, __file__, "--one", str(count)]
+        done = subprocess.run(command, capture_output=True, text=True, check=True)
         rows.append(json.loads(done.stdout.strip().splitlines()[-1]))
     if len(rows) >= 2:
         rows[-1]["ms_per_test_page_ratio_to_first"] = rows[-1]["ms_per_test_page"] / rows[0]["ms_per_test_page"]
     if args.json:
         print(json.dumps(rows, indent=2))
         return
-    print("targets: generation < 10% of the MkDocs build; time per test page at the largest size within 1.3x of the first")
+    print("targets: generation < 10% of the MkDocs build; time per test page at the largest size within 1.3x of")
+    print("the time per test page at the first size")
     for row in rows:
         print(", ".join(f"{k} {v:.4g}" if isinstance(v, float) else f"{k} {v}" for k, v in row.items()))
 
