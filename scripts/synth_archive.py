@@ -180,7 +180,8 @@ class _Generator:
     def __init__(self, seed: int, count: int):
         self.rng = random.Random(seed)
         self.count = count
-        self.by_area: dict[str, list[tuple[str, str, int]]] = {a: [] for a in PAGE_AREAS}  # [(id, theme, change)]
+        #: decided tests that a later one may iterate on, by page area: (id, theme, change, decision date)
+        self.by_area: dict[str, list[tuple[str, str, int, dt.date]]] = {a: [] for a in PAGE_AREAS}
 
     def record(self, number: int) -> tuple[str, str]:
         """(id, YAML text) of record ``number``."""
@@ -191,9 +192,9 @@ class _Generator:
         area_text = PAGE_AREAS[area]
 
         parent: str | None = None
-        earlier = self.by_area[area]
+        earlier = [e for e in self.by_area[area][-40:] if e[3] < started]  # decided before this one starts
         if earlier and rnd() < 0.15:
-            parent, theme, change = earlier[-1 - rng.randrange(min(len(earlier), 20))]
+            parent, theme, change, _decided = earlier[-1 - rng.randrange(min(len(earlier), 20))]
         else:
             theme = choice(THEMES)
             change = rng.randrange(len(CHANGES[theme]))
@@ -372,7 +373,7 @@ class _Generator:
                 )
             )
             if outcome == "iterate" or rnd() < 0.3:
-                self.by_area[area].append((record_id, theme, change))
+                self.by_area[area].append((record_id, theme, change, decided))
         if rnd() < 0.6:
             out.append(
                 "links:\n"
