@@ -11,8 +11,6 @@ from typing import Annotated
 
 import typer
 
-from ..problems import errors
-from ..validate import load_record
 from .common import RecordsOption, err, out, print_problems, user_errors
 
 
@@ -56,8 +54,10 @@ def analyze(
     """Analyse one test: trust checks, lift and probabilities per arm, revenue, verdicts, a recommendation."""
     from ..analysis import Settings
     from ..analysis import analyze as run_analysis
+    from ..problems import errors
     from ..report import build_memo, render_markdown, render_terminal
     from ..segments import analyze_segments
+    from ..validate import load_record
 
     with user_errors():
         path = _record_path(record_id, file, records)

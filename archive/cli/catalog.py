@@ -6,14 +6,10 @@ import datetime as dt
 import json
 import sys
 from pathlib import Path
-from typing import Annotated
+from typing import TYPE_CHECKING, Annotated
 
 import typer
 
-from ..database import make_engine, prepare, resolve_url
-from ..index import index_archive
-from ..query import LIST_COLUMNS, Filters, find_tests, get_record, index_size
-from ..record import Record
 from .common import (
     CsvFlag,
     DbOption,
@@ -28,6 +24,10 @@ from .common import (
     show_progress,
     user_errors,
 )
+
+if TYPE_CHECKING:
+    from ..query import Filters
+    from ..record import Record
 
 ThemeOpt = Annotated[str | None, typer.Option("--theme", help="Only tests with this theme.")]
 AreaOpt = Annotated[str | None, typer.Option("--page-area", help="Only tests on this page area.")]
@@ -45,6 +45,9 @@ UntilOpt = Annotated[
 
 def index(records: RecordsOption = Path("records"), db: DbOption = None) -> None:
     """Load the records into the index (only changed files are read again)."""
+    from ..database import make_engine, resolve_url
+    from ..index import index_archive
+
     url = resolve_url(records, db)
     with user_errors():
         engine = make_engine(url)
@@ -68,6 +71,8 @@ def index(records: RecordsOption = Path("records"), db: DbOption = None) -> None
 
 
 def _filters(theme, page_area, status, outcome, owner, tag, since, until, text=None) -> Filters:  # type: ignore[no-untyped-def]
+    from ..query import Filters
+
     return Filters(
         theme=theme,
         page_area=page_area,
@@ -82,6 +87,9 @@ def _filters(theme, page_area, status, outcome, owner, tag, since, until, text=N
 
 
 def _query(records: Path, db: str | None, filters: Filters, fmt: Format, title: str) -> None:
+    from ..database import make_engine, prepare, resolve_url
+    from ..query import LIST_COLUMNS, find_tests, index_size
+
     with user_errors():
         engine = make_engine(resolve_url(records, db))
         prepare(engine)
@@ -143,6 +151,9 @@ def show(
     db: DbOption = None,
 ) -> None:
     """Show one indexed test: what was tried, the numbers, the decision and the learnings."""
+    from ..database import make_engine, prepare, resolve_url
+    from ..query import get_record
+
     fmt = chosen_format(fmt, as_json)
     with user_errors():
         engine = make_engine(resolve_url(records, db))

@@ -9,11 +9,6 @@ from typing import Annotated
 
 import typer
 
-from ..files import write_new
-from ..problems import blocking
-from ..record import record_schema
-from ..scaffold import Draft, ScaffoldError, arms_from_csv, arms_from_names, render
-from ..validate import check_archive
 from .common import Format, RecordsOption, emit_rows, err, out, print_problems, user_errors
 
 
@@ -23,6 +18,9 @@ def check(
     fmt: Annotated[Format, typer.Option("--format", "-f", help="table (one line per problem) or json.")] = Format.table,
 ) -> None:
     """Validate every record; print each problem as path:line: field: message."""
+    from ..problems import blocking
+    from ..validate import check_archive
+
     with user_errors():
         report = check_archive(records)
     failing = blocking(report.problems, strict)
@@ -55,6 +53,9 @@ def new(
     records: RecordsOption = Path("records"),
 ) -> None:
     """Start a record from options or a results CSV; never overwrites a file."""
+    from ..files import write_new
+    from ..scaffold import Draft, ScaffoldError, arms_from_csv, arms_from_names, render
+
     with user_errors():
         try:
             if results is not None:
@@ -86,6 +87,8 @@ def schema(
     markdown: Annotated[bool, typer.Option("--markdown", help="A field reference in Markdown instead.")] = False,
 ) -> None:
     """Print the JSON Schema of a record (for editors), or the field reference."""
+    from ..record import record_schema
+
     if markdown:
         from ..fieldref import field_reference
 
