@@ -22,6 +22,7 @@ from .stats.proportions import compare_rates, equivalence_test
 from .stats.revenue import (
     BootstrapInterval,
     ExtremeOrders,
+    MeanComparison,
     MeanSummary,
     bootstrap_interval,
     bootstrap_means,
@@ -423,17 +424,11 @@ def _revenue(control: Arm, treatments: list[Arm], orders: Orders | None, s: Sett
                 MeanSummary(_i(control.visitors), control.revenue, control.revenue_sum_of_squares),
                 s.confidence,
             )
-            out[t.name] = RevenueResult(
+            out[t.name] = _welch_result(
                 "sum-of-squares",
                 rpv_c,
                 rpv_t,
-                w.difference,
-                w.difference_low,
-                w.difference_high,
-                w.lift,
-                w.lift_low,
-                w.lift_high,
-                w.p_value,
+                w,
                 note="Welch interval of the RPV difference; delta-method interval of its relative lift",
             )
         else:
@@ -446,6 +441,22 @@ def _revenue(control: Arm, treatments: list[Arm], orders: Orders | None, s: Sett
                 note="point estimates only: without sums of squares or an orders file the noise of revenue is unknown",
             )
     return out
+
+
+def _welch_result(method: str, rpv_c: float, rpv_t: float, w: MeanComparison, **extra: Any) -> RevenueResult:
+    return RevenueResult(
+        method,  # type: ignore[arg-type]
+        rpv_c,
+        rpv_t,
+        w.difference,
+        w.difference_low,
+        w.difference_high,
+        w.lift,
+        w.lift_low,
+        w.lift_high,
+        w.p_value,
+        **extra,
+    )
 
 
 def _revenue_from_orders(control: Arm, treatments: list[Arm], orders: Orders, s: Settings) -> dict[str, RevenueResult]:
@@ -472,17 +483,11 @@ def _revenue_from_orders(control: Arm, treatments: list[Arm], orders: Orders, s:
             MeanSummary.of(np.minimum(t_vals, cap), n_t), MeanSummary.of(np.minimum(c_vals, cap), n_c), s.confidence
         )
         extreme = extreme_order_check(raw[t.name], n_t, raw[control.name], n_c, cap, s.top_fraction)
-        out[t.name] = RevenueResult(
+        out[t.name] = _welch_result(
             "orders-file",
-            c_vals.sum() / n_c,
-            t_vals.sum() / n_t,
-            w.difference,
-            w.difference_low,
-            w.difference_high,
-            w.lift,
-            w.lift_low,
-            w.lift_high,
-            w.p_value,
+            float(c_vals.sum() / n_c),
+            float(t_vals.sum() / n_t),
+            w,
             bootstrap=bootstrap_interval(boot[t.name], boot[control.name], s.confidence, s.seed),
             capped_rpv_control=float(np.minimum(c_vals, cap).sum() / n_c),
             capped_rpv_arm=float(np.minimum(t_vals, cap).sum() / n_t),
