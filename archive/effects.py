@@ -142,7 +142,7 @@ def record_effects_from(record: Record, analysis: Analysis) -> list[Effect]:
 
 def segment_effects(record: Record, dimension: str, settings: Settings | None = None) -> list[Effect]:
     """One effect per segment value and treatment, from the record's segment counts (control split as above)."""
-    base = {(e.arm): e for e in record_effects(record, None, settings)}
+    base = {e.arm: e for e in record_effects(record, None, settings)}
     if not base or dimension not in record.segments:
         return []
     control = record.control_arm().name

@@ -243,6 +243,14 @@ def group_chart_rows(group: GroupResult, data: SiteData) -> list[tuple[str, floa
     return rows
 
 
+def _ranked_row(g: GroupResult, folder: str) -> str:
+    """The start of a row of a ranked-groups table: linked name, comparisons, pooled lift, prediction interval."""
+    return (
+        f"| [{md_text(g.key)}]({folder}{slug(g.key)}.md) | {g.comparisons} | {pct(g.lift, 1, True)} "
+        f"{interval(g.lift_low, g.lift_high)} | {interval(g.prediction_low, g.prediction_high)} |"
+    )
+
+
 def group_index(kind: str, pooled: PoolResult | None, data: SiteData) -> str:
     noun = "Themes" if kind == "themes" else "Page areas"
     out = [f"# {noun}", ""]
@@ -255,11 +263,7 @@ def group_index(kind: str, pooled: PoolResult | None, data: SiteData) -> str:
         "|---|---|---|---|---|",
     ]
     for g in pooled.groups:
-        out.append(
-            f"| [{md_text(g.key)}]({slug(g.key)}.md) | {g.comparisons} | {pct(g.lift, 1, True)} "
-            f"{interval(g.lift_low, g.lift_high)} | {interval(g.prediction_low, g.prediction_high)} | "
-            f"{g.wins.count}/{g.wins.total} |" + (" few tests |" if g.warning else "")
-        )
+        out.append(_ranked_row(g, "") + f" {g.wins.count}/{g.wins.total} |" + (" few tests |" if g.warning else ""))
     return "\n".join(out).rstrip() + "\n"
 
 
@@ -343,11 +347,7 @@ def home_page(data: SiteData, latest: int = 8) -> str:
             "| theme | comparisons | pooled lift (95% CI) | next test (95% PI) |",
             "|---|---|---|---|",
         ]
-        for g in pooled.groups:
-            out.append(
-                f"| [{md_text(g.key)}](themes/{slug(g.key)}.md) | {g.comparisons} | {pct(g.lift, 1, True)} "
-                f"{interval(g.lift_low, g.lift_high)} | {interval(g.prediction_low, g.prediction_high)} |"
-            )
+        out += [_ranked_row(g, "themes/") for g in pooled.groups]
         out.append("")
     out += ["## Latest learnings", ""]
     shown = 0
