@@ -19,8 +19,8 @@ from pathlib import Path
 import numpy as np
 
 from archive.analysis import analyze
+from archive.records.load import load_record
 from archive.stats.bayes import BetaPosterior, prob_best
-from archive.validate import load_record
 
 
 def _best_of(fn, repeats: int = 5) -> float:  # type: ignore[no-untyped-def]

@@ -55,10 +55,10 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 from synth_archive import write_archive  # noqa: E402
 
-from archive.database import make_engine  # noqa: E402
-from archive.index import index_archive  # noqa: E402
-from archive.problems import errors  # noqa: E402
-from archive.validate import check_archive  # noqa: E402
+from archive.records.load import check_archive  # noqa: E402
+from archive.records.problems import errors  # noqa: E402
+from archive.store.engine import make_engine  # noqa: E402
+from archive.store.sync import index_archive  # noqa: E402
 
 PG_ENV = "ARCHIVE_TEST_POSTGRES_URL"
 CHEAP = 30.0  # seconds; a measure whose first run is faster than this is repeated in later rounds

@@ -10,7 +10,7 @@ from pathlib import Path
 import pytest
 from sqlalchemy import Engine, text
 
-from archive.database import make_engine
+from archive.store.engine import make_engine
 
 # Invented test data (not from any real shop); numbers chosen so every check passes.
 GOOD = """\

@@ -15,9 +15,9 @@ from typer.testing import CliRunner
 
 from archive.analysis import CannotAnalyze, Settings, analyze
 from archive.cli.main import app
-from archive.record import Record
+from archive.records.load import load_record
+from archive.records.model import Record
 from archive.stats.power import visitors_per_arm
-from archive.validate import load_record
 
 runner = CliRunner()
 

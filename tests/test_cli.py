@@ -10,8 +10,8 @@ from pydantic import BaseModel
 from typer.testing import CliRunner
 
 from archive.cli.main import app
-from archive.fieldref import SECTIONS, field_reference
-from archive.record import Record
+from archive.records.fieldref import SECTIONS, field_reference
+from archive.records.model import Record
 from tests.conftest import good_text, snapshot
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -93,7 +93,7 @@ def test_new_from_results_csv(tmp_path: Path) -> None:
     code, out, _ = run("check", "--records", str(records))
     assert code == 0, out  # only warnings: no decision, no learnings yet
     assert "no decision recorded" in out
-    from archive.validate import check_archive
+    from archive.records.load import check_archive
 
     (loaded,) = check_archive(records).records
     assert loaded.record.arm("ribbon").conversions == 342 and loaded.record.control_arm().name == "control"

@@ -8,10 +8,10 @@ from pathlib import Path
 import pytest
 from sqlalchemy import Engine, func, select, text
 
-from archive.index import index_archive
-from archive.problems import ArchiveInvalid
-from archive.query import Filters, arms_frame, find_tests, get_record, segments_frame, tests_frame
-from archive.tables import ArmRow, RecordRow, SegmentRow, ThemeRow
+from archive.records.problems import ArchiveInvalid
+from archive.store.query import Filters, arms_frame, find_tests, get_record, segments_frame, tests_frame
+from archive.store.sync import index_archive
+from archive.store.tables import ArmRow, RecordRow, SegmentRow, ThemeRow
 from tests.conftest import good_text, snapshot
 
 

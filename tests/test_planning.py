@@ -12,9 +12,9 @@ import pytest
 from typer.testing import CliRunner
 
 from archive.cli.main import app
-from archive.effects import load_archive_effects
-from archive.planning import assurance, dunnett_critical, exaggeration, plan_test
-from archive.priors import LiftPrior, informed_lift, lift_prior
+from archive.planning.plan import assurance, dunnett_critical, exaggeration, plan_test
+from archive.planning.priors import LiftPrior, informed_lift, lift_prior
+from archive.pooling.effects import load_archive_effects
 
 ROOT = Path(__file__).resolve().parents[1]
 runner = CliRunner()
@@ -129,7 +129,7 @@ def test_prior_falls_back_with_a_warning() -> None:
 
 
 def test_calibration_on_demo_archive_beats_a_flat_prior() -> None:
-    from archive.calibration import calibrate
+    from archive.planning.calibration import calibrate
 
     _, effects = load_archive_effects(ROOT / "records")
     result = calibrate(effects)

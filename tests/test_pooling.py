@@ -16,8 +16,8 @@ from typer.testing import CliRunner
 
 from archive.analysis import Settings
 from archive.cli.main import app
-from archive.effects import Effect, log_rr_split, record_effects
-from archive.pooling import (
+from archive.pooling.effects import Effect, log_rr_split, record_effects
+from archive.pooling.groups import (
     beta_binomial_fit,
     egger_test,
     false_positive_risk,
@@ -27,7 +27,7 @@ from archive.pooling import (
     meta_regression_by_date,
     pool,
 )
-from archive.record import Record
+from archive.records.model import Record
 
 ROOT = Path(__file__).resolve().parents[1]
 runner = CliRunner()

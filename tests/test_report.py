@@ -4,7 +4,9 @@ from __future__ import annotations
 
 import pytest
 
-from archive.report import Memo, Section, Table, md_text, render_markdown
+from archive.render.formats import md_text
+from archive.render.markdown import render_markdown
+from archive.render.model import Memo, Section, Table
 
 CORPUS = [
     ("<script>alert(1)</script>", "&lt;script&gt;alert(1)&lt;/script&gt;"),

@@ -13,9 +13,9 @@ import pytest
 import yaml
 from typer.testing import CliRunner
 
+from archive.analysis.segments import SegmentRow, UnknownDimension, _adjust, analyze_segments
 from archive.cli.main import app
-from archive.record import Record
-from archive.segments import SegmentRow, UnknownDimension, _adjust, analyze_segments
+from archive.records.model import Record
 from archive.stats.proportions import compare_rates, mantel_haenszel_rr
 
 runner = CliRunner()

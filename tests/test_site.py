@@ -117,7 +117,7 @@ def test_deterministic_and_incremental(built: Path, tmp_path: Path) -> None:
 
 
 def test_site_refuses_broken_archive(tmp_path: Path) -> None:
-    from archive.problems import ArchiveInvalid
+    from archive.records.problems import ArchiveInvalid
 
     records = tmp_path / "records"
     shutil.copytree(FIXTURE, records)

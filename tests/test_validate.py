@@ -6,8 +6,8 @@ from pathlib import Path
 
 import pytest
 
-from archive.problems import Problem
-from archive.validate import check_archive, load_record
+from archive.records.load import check_archive, load_record
+from archive.records.problems import Problem
 from tests.conftest import good_text, snapshot
 
 

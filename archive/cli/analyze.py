@@ -11,7 +11,7 @@ from typing import Annotated
 
 import typer
 
-from .common import RecordsOption, err, out, print_problems, user_errors
+from archive.cli.common import RecordsOption, err, out, print_problems, user_errors
 
 
 class Adjust(StrEnum):
@@ -52,13 +52,14 @@ def analyze(
     records: RecordsOption = Path("records"),
 ) -> None:
     """Analyse one test: trust checks, lift and probabilities per arm, revenue, verdicts, a recommendation."""
-    from ..analysis import Settings
-    from ..analysis import analyze as run_analysis
-    from ..problems import errors
-    from ..report import build_memo, render_markdown, render_terminal
-    from ..segments import analyze_segments
-    from ..validate import load_record
-
+    from archive.analysis import Settings
+    from archive.analysis import analyze as run_analysis
+    from archive.analysis.segments import analyze_segments
+    from archive.records.load import load_record
+    from archive.records.problems import errors
+    from archive.render.analysis import build_memo
+    from archive.render.markdown import render_markdown
+    from archive.render.terminal import render_terminal
     with user_errors():
         path = _record_path(record_id, file, records)
         loaded, problems = load_record(path)
@@ -72,11 +73,11 @@ def analyze(
         history = _history(loaded.record, records, prior) if prior != "uniform" else None
         written = []
         if plot is not None:
-            from ..plots import posterior_lift_plot
+            from archive.render.plots import posterior_lift_plot
 
             written.append(posterior_lift_plot(loaded.record, result, plot, settings.prior))
         if forest is not None and segments is not None:
-            from ..plots import segment_forest_plot
+            from archive.render.plots import segment_forest_plot
 
             for c in result.comparisons:
                 target = forest.with_name(f"{forest.stem}-{c.arm}{forest.suffix or '.svg'}")
@@ -96,7 +97,7 @@ def analyze(
     else:
         memo = build_memo(result, segments)
         if history is not None:
-            from ..planreport import informed_section
+            from archive.render.planning import informed_section
 
             memo.sections.insert(2, informed_section(history[1], history[0]))
         if fmt is MemoFormat.markdown:
@@ -109,9 +110,9 @@ def analyze(
 
 def _history(record, records: Path, prior: str):  # type: ignore[no-untyped-def]
     """The history prior for this test and each comparison's lift under it."""
-    from ..effects import load_archive_effects
-    from ..priors import informed_lift, prior_for_record
-    from ..stats.proportions import log_risk_ratio
+    from archive.planning.priors import informed_lift, prior_for_record
+    from archive.pooling.effects import load_archive_effects
+    from archive.stats.proportions import log_risk_ratio
 
     if prior != "history":
         raise ValueError("--prior is uniform or history")

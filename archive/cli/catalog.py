@@ -10,7 +10,7 @@ from typing import TYPE_CHECKING, Annotated
 
 import typer
 
-from .common import (
+from archive.cli.common import (
     CsvFlag,
     DbOption,
     Format,
@@ -26,8 +26,8 @@ from .common import (
 )
 
 if TYPE_CHECKING:
-    from ..query import Filters
-    from ..record import Record
+    from archive.records.model import Record
+    from archive.store.query import Filters
 
 ThemeOpt = Annotated[str | None, typer.Option("--theme", help="Only tests with this theme.")]
 AreaOpt = Annotated[str | None, typer.Option("--page-area", help="Only tests on this page area.")]
@@ -45,8 +45,8 @@ UntilOpt = Annotated[
 
 def index(records: RecordsOption = Path("records"), db: DbOption = None) -> None:
     """Load the records into the index (only changed files are read again)."""
-    from ..database import make_engine, resolve_url
-    from ..index import index_archive
+    from archive.store.engine import make_engine, resolve_url
+    from archive.store.sync import index_archive
 
     url = resolve_url(records, db)
     with user_errors():
@@ -71,7 +71,7 @@ def index(records: RecordsOption = Path("records"), db: DbOption = None) -> None
 
 
 def _filters(theme, page_area, status, outcome, owner, tag, since, until, text=None) -> Filters:  # type: ignore[no-untyped-def]
-    from ..query import Filters
+    from archive.store.query import Filters
 
     return Filters(
         theme=theme,
@@ -87,8 +87,8 @@ def _filters(theme, page_area, status, outcome, owner, tag, since, until, text=N
 
 
 def _query(records: Path, db: str | None, filters: Filters, fmt: Format, title: str) -> None:
-    from ..database import make_engine, prepare, resolve_url
-    from ..query import LIST_COLUMNS, find_tests, index_size
+    from archive.store.engine import make_engine, prepare, resolve_url
+    from archive.store.query import LIST_COLUMNS, find_tests, index_size
 
     with user_errors():
         engine = make_engine(resolve_url(records, db))
@@ -151,8 +151,8 @@ def show(
     db: DbOption = None,
 ) -> None:
     """Show one indexed test: what was tried, the numbers, the decision and the learnings."""
-    from ..database import make_engine, prepare, resolve_url
-    from ..query import get_record
+    from archive.store.engine import make_engine, prepare, resolve_url
+    from archive.store.query import get_record
 
     fmt = chosen_format(fmt, as_json)
     with user_errors():

@@ -16,8 +16,8 @@ from typing import Annotated, Any
 import typer
 from rich.console import Console
 
-from ..files import FileExists
-from ..problems import ArchiveInvalid, Problem
+from archive.records.files import FileExists
+from archive.records.problems import ArchiveInvalid, Problem
 
 RECORDS_ENV = "ARCHIVE_RECORDS"
 

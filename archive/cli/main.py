@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import typer
 
-from . import analyze, catalog, planning, pool, records, site
+from archive.cli import analyze, catalog, planning, pool, records, site
 
 app = typer.Typer(
     name="archive",

@@ -10,8 +10,8 @@ from typing import Annotated
 
 import typer
 
-from .analyze import MemoFormat
-from .common import RecordsOption, err, out, user_errors
+from archive.cli.analyze import MemoFormat
+from archive.cli.common import RecordsOption, err, out, user_errors
 
 
 def prior(
@@ -22,10 +22,11 @@ def prior(
     records: RecordsOption = Path("records"),
 ) -> None:
     """The prior for the true lift of a new test of a theme (and page area), from the archive."""
-    from ..effects import load_archive_effects
-    from ..planreport import prior_memo
-    from ..priors import baseline_prior, lift_prior, prior_yaml
-    from ..report import render_markdown, render_terminal
+    from archive.planning.priors import baseline_prior, lift_prior, prior_yaml
+    from archive.pooling.effects import load_archive_effects
+    from archive.render.markdown import render_markdown
+    from archive.render.planning import prior_memo
+    from archive.render.terminal import render_terminal
 
     with user_errors():
         loaded, effects = load_archive_effects(records)
@@ -70,12 +71,13 @@ def plan(
     records: RecordsOption = Path("records"),
 ) -> None:
     """Visitors per arm, whole weeks, and (with --theme) the assurance and risks history implies."""
-    from ..effects import load_archive_effects
-    from ..planning import plan_test
-    from ..planreport import plan_memo
-    from ..pooling import pool
-    from ..priors import baseline_prior, lift_prior
-    from ..report import render_markdown, render_terminal
+    from archive.planning.plan import plan_test
+    from archive.planning.priors import baseline_prior, lift_prior
+    from archive.pooling.effects import load_archive_effects
+    from archive.pooling.groups import pool
+    from archive.render.markdown import render_markdown
+    from archive.render.planning import plan_memo
+    from archive.render.terminal import render_terminal
 
     with user_errors():
         loaded, effects = (None, None)
@@ -121,8 +123,8 @@ def plan(
 
 
 def _write_plan(records, record_id, title, page_area, theme, result, weights, history) -> None:  # type: ignore[no-untyped-def]
-    from ..files import write_new
-    from ..scaffold import Draft, arms_from_names, render_plan
+    from archive.records.files import write_new
+    from archive.records.template import Draft, arms_from_names, render_plan
 
     if not page_area or not theme or not title:
         raise ValueError("--write needs --title, --page-area and --theme")
@@ -137,10 +139,11 @@ def calibrate(
     records: RecordsOption = Path("records"),
 ) -> None:
     """Replay the archive in date order: were history-based forecasts better than a flat prior?"""
-    from ..calibration import calibrate as run
-    from ..effects import load_archive_effects
-    from ..planreport import calibration_memo
-    from ..report import render_markdown, render_terminal
+    from archive.planning.calibration import calibrate as run
+    from archive.pooling.effects import load_archive_effects
+    from archive.render.markdown import render_markdown
+    from archive.render.planning import calibration_memo
+    from archive.render.terminal import render_terminal
 
     with user_errors():
         _, effects = load_archive_effects(records)

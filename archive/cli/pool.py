@@ -10,8 +10,8 @@ from typing import Annotated
 
 import typer
 
-from .analyze import MemoFormat
-from .common import RecordsOption, err, out, user_errors
+from archive.cli.analyze import MemoFormat
+from archive.cli.common import RecordsOption, err, out, user_errors
 
 
 class Method(StrEnum):
@@ -36,10 +36,11 @@ def pool(
     records: RecordsOption = Path("records"),
 ) -> None:
     """Pool every comparison by group: pooled lift, spread, prediction interval, win rates, realistic lifts."""
-    from ..effects import load_archive_effects
-    from ..pooling import pool as run_pool
-    from ..report import build_pool_memo, render_markdown, render_terminal
-
+    from archive.pooling.effects import load_archive_effects
+    from archive.pooling.groups import pool as run_pool
+    from archive.render.markdown import render_markdown
+    from archive.render.pooling import build_pool_memo
+    from archive.render.terminal import render_terminal
     with user_errors():
         grouping, segment = (by, None)
         if by.startswith("segment:"):
@@ -52,7 +53,7 @@ def pool(
             result.by = by
         written = []
         if plots is not None:
-            from ..plots import funnel_plot, group_forest_plot
+            from archive.render.plots import funnel_plot, group_forest_plot
 
             for group in result.groups:
                 safe = "".join(c if c.isalnum() or c in "-_" else "-" for c in group.key)

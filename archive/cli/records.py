@@ -9,7 +9,7 @@ from typing import Annotated
 
 import typer
 
-from .common import Format, RecordsOption, emit_rows, err, out, print_problems, user_errors
+from archive.cli.common import Format, RecordsOption, emit_rows, err, out, print_problems, user_errors
 
 
 def check(
@@ -18,8 +18,8 @@ def check(
     fmt: Annotated[Format, typer.Option("--format", "-f", help="table (one line per problem) or json.")] = Format.table,
 ) -> None:
     """Validate every record; print each problem as path:line: field: message."""
-    from ..problems import blocking
-    from ..validate import check_archive
+    from archive.records.load import check_archive
+    from archive.records.problems import blocking
 
     with user_errors():
         report = check_archive(records)
@@ -53,8 +53,8 @@ def new(
     records: RecordsOption = Path("records"),
 ) -> None:
     """Start a record from options or a results CSV; never overwrites a file."""
-    from ..files import write_new
-    from ..scaffold import Draft, ScaffoldError, arms_from_csv, arms_from_names, render
+    from archive.records.files import write_new
+    from archive.records.template import Draft, ScaffoldError, arms_from_csv, arms_from_names, render
 
     with user_errors():
         try:
@@ -87,10 +87,10 @@ def schema(
     markdown: Annotated[bool, typer.Option("--markdown", help="A field reference in Markdown instead.")] = False,
 ) -> None:
     """Print the JSON Schema of a record (for editors), or the field reference."""
-    from ..record import record_schema
+    from archive.records.model import record_schema
 
     if markdown:
-        from ..fieldref import field_reference
+        from archive.records.fieldref import field_reference
 
         typer.echo(field_reference(), nl=False)
     else:

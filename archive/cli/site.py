@@ -8,7 +8,7 @@ from typing import Annotated
 
 import typer
 
-from .common import RecordsOption, err, show_progress, user_errors
+from archive.cli.common import RecordsOption, err, show_progress, user_errors
 
 app = typer.Typer(help="Publish the archive as a browsable site (MkDocs).", no_args_is_help=True)
 
@@ -22,8 +22,8 @@ def build(
     records: RecordsOption = Path("records"),
 ) -> None:
     """Generate Markdown and SVG from the archive and build the HTML site."""
-    from ..site.build import build_site
-    from ..site.engine import MkDocsProblems
+    from archive.site.build import build_site
+    from archive.site.engine import MkDocsProblems
 
     with user_errors():
         try:
@@ -50,7 +50,7 @@ def serve(
     import functools
     import http.server
 
-    from ..site.build import build_site
+    from archive.site.build import build_site
 
     with user_errors():
         report = build_site(records, out)

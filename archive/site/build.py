@@ -13,11 +13,11 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from ..effects import Effect
-from ..files import write_replace
-from ..pooling import PoolResult, pool
-from . import pages, svg
-from .entries import load_entries
+from archive.pooling.effects import Effect
+from archive.pooling.groups import PoolResult, pool
+from archive.records.files import write_replace
+from archive.site import pages, svg
+from archive.site.entries import load_entries
 
 REFERENCE = Path(__file__).resolve().parents[2] / "site"
 NAV = """nav:
@@ -157,7 +157,7 @@ def build_site(
         write_replace(config, text)
     report.generate_seconds = time.perf_counter() - start
     if run_mkdocs:
-        from .engine import run_mkdocs_build
+        from archive.site.engine import run_mkdocs_build
 
         start = time.perf_counter()
         report.html = run_mkdocs_build(config)

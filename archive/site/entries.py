@@ -15,17 +15,18 @@ from pathlib import Path
 
 import numpy as np
 
-from ..analysis import Analysis, CannotAnalyze, Settings, analyze
-from ..effects import Effect, record_effects_from
-from ..orders import orders_path
-from ..problems import ArchiveInvalid, Problem, errors
-from ..record import record_from_json
-from ..report import build_memo, markdown_sections
-from ..segments import analyze_segments
-from ..stats import bayes
-from ..validate import LoadedRecord, Summary, archive_problems, load_record, record_files
-from ..yamlsource import YamlDocument, YamlProblem, read_yaml
-from . import svg
+from archive.analysis import Analysis, CannotAnalyze, Settings, analyze
+from archive.analysis.segments import analyze_segments
+from archive.pooling.effects import Effect, record_effects_from
+from archive.records.load import LoadedRecord, Summary, archive_problems, load_record, record_files
+from archive.records.model import record_from_json
+from archive.records.orders import orders_path
+from archive.records.problems import ArchiveInvalid, Problem, errors
+from archive.records.yamlsource import YamlDocument, YamlProblem, read_yaml
+from archive.render.analysis import build_memo
+from archive.render.markdown import markdown_sections
+from archive.site import svg
+from archive.stats import bayes
 
 CACHE_VERSION = "1"
 

@@ -1,6 +1,6 @@
 """The pages of the site as Markdown text, from test entries and the pooled archive.
 
-Everything taken from a record goes through :func:`archive.report.md_text` (HTML and Markdown escaped, one
+Everything taken from a record goes through :func:`archive.render.formats.md_text` (HTML and Markdown escaped, one
 line) and links from records are kept only for http(s). Pages link to each other with relative ``.md`` paths,
 which MkDocs resolves and checks. Output is deterministic: sorted iteration, fixed number formats, no dates
 other than the records' own.
@@ -12,11 +12,11 @@ import datetime as dt
 from collections import defaultdict
 from dataclasses import dataclass
 
-from ..pooling import GroupResult, PoolResult
-from ..priors import lift_prior
-from ..record import Record, canonical_label, record_from_json
-from ..report import interval, md_text, pct
-from .entries import TestEntry
+from archive.planning.priors import lift_prior
+from archive.pooling.groups import GroupResult, PoolResult
+from archive.records.model import Record, canonical_label, record_from_json
+from archive.render.formats import interval, md_text, pct
+from archive.site.entries import TestEntry
 
 
 @dataclass

@@ -11,7 +11,7 @@ import html
 import math
 from collections.abc import Sequence
 
-from ..plots import PALETTE
+from archive.render.palette import PALETTE
 
 WIDTH, PLOT_LEFT, PLOT_RIGHT = 640, 150, 620
 

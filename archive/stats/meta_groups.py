@@ -17,7 +17,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
-from .meta import ArrayLike, TauMethod, reml_grid
+from archive.stats.meta import ArrayLike, TauMethod, reml_grid
 
 _MAX_ITERATIONS = 300
 _RELATIVE_TOLERANCE = 1e-13

@@ -1,6 +1,6 @@
 """The index's tables: SQLModel table models built on the same cores as the record models.
 
-Table models do not validate on creation; rows are always made from a :class:`~archive.record.Record` that was
+Table models do not validate on creation; rows are always made from a :class:`~archive.records.model.Record` that was
 validated first. ``body`` keeps the whole validated record as JSON so that ``show`` and the analyses can rebuild
 it without reading the YAML again.
 """
@@ -10,7 +10,7 @@ from __future__ import annotations
 from sqlalchemy import Column, Index, Table, Text
 from sqlmodel import Field, SQLModel
 
-from .record import ArmCore, RecordCore
+from archive.records.model import ArmCore, RecordCore
 
 #: bump when the tables change; an index of another version is rebuilt from the records
 SCHEMA_VERSION = 1

@@ -13,7 +13,7 @@ from pathlib import Path
 from sqlalchemy import Engine, Table, create_engine, event, text
 from sqlmodel import SQLModel
 
-from .tables import ALL_TABLES, META, SCHEMA_VERSION, MetaRow
+from archive.store.tables import ALL_TABLES, META, SCHEMA_VERSION, MetaRow
 
 ENV_VAR = "ARCHIVE_DB"
 DEFAULT_DIR = ".archive"

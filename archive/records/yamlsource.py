@@ -23,7 +23,7 @@ from typing import Any
 
 import yaml
 
-from .problems import Problem
+from archive.records.problems import Problem
 
 try:  # libyaml is a speed-up only; behaviour is the same without it
     _Loader: type[yaml.SafeLoader] = yaml.CSafeLoader  # type: ignore[assignment]

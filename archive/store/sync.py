@@ -17,13 +17,13 @@ from typing import Any
 
 from sqlalchemy import Engine, delete, select, text
 
-from .database import prepare
-from .orders import orders_path
-from .problems import ArchiveInvalid, Problem, errors
-from .record import Record, RecordCore
-from .tables import ARM, CHILD_TABLES, RECORD, SEGMENT, TAG, THEME
-from .validate import LoadedRecord, Summary, archive_problems, gc_paused, load_record, record_files
-from .yamlsource import YamlProblem, read_yaml
+from archive.records.load import LoadedRecord, Summary, archive_problems, gc_paused, load_record, record_files
+from archive.records.model import Record, RecordCore
+from archive.records.orders import orders_path
+from archive.records.problems import ArchiveInvalid, Problem, errors
+from archive.records.yamlsource import YamlProblem, read_yaml
+from archive.store.engine import prepare
+from archive.store.tables import ARM, CHILD_TABLES, RECORD, SEGMENT, TAG, THEME
 
 _CHUNK = 500
 

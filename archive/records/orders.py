@@ -12,7 +12,7 @@ import math
 from dataclasses import dataclass
 from pathlib import Path, PurePosixPath
 
-from .problems import Problem
+from archive.records.problems import Problem
 
 ID_COLUMNS = ("order_id", "visitor_id")
 

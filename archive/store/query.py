@@ -1,6 +1,6 @@
 """Finding tests again: filters, full-text search and DataFrames for notebooks.
 
-All functions read the index built by :func:`archive.index.index_archive` and return plain data: lists of dicts
+All functions read the index built by :func:`archive.store.sync.index_archive` and return plain data: lists of dicts
 (one per test, sorted by start date then id), validated :class:`Record` objects, or pandas DataFrames.
 
 Date filters select the tests that were running at some point in the range: ``since`` keeps tests that ended (or,
@@ -17,9 +17,9 @@ from typing import TYPE_CHECKING, Any
 from sqlalchemy import Engine, and_, func, literal_column, or_, select, text
 from sqlalchemy.sql import ColumnElement
 
-from .database import search_document_sql
-from .record import Record, record_from_json
-from .tables import ARM, RECORD, SEGMENT, TAG, THEME
+from archive.records.model import Record, record_from_json
+from archive.store.engine import search_document_sql
+from archive.store.tables import ARM, RECORD, SEGMENT, TAG, THEME
 
 if TYPE_CHECKING:
     import pandas as pd

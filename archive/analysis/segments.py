@@ -26,12 +26,12 @@ import math
 from dataclasses import dataclass, field
 from typing import Any, Literal
 
-from .analysis import Settings, json_safe
-from .record import Record
-from .stats.meta import heterogeneity, interaction_test
-from .stats.multiple import benjamini_hochberg, holm
-from .stats.proportions import compare_rates, log_risk_ratio, mantel_haenszel_rr
-from .stats.srm import sample_ratio_test
+from archive.analysis.results import Settings, json_safe
+from archive.records.model import Record
+from archive.stats.meta import heterogeneity, interaction_test
+from archive.stats.multiple import benjamini_hochberg, holm
+from archive.stats.proportions import compare_rates, log_risk_ratio, mantel_haenszel_rr
+from archive.stats.srm import sample_ratio_test
 
 MIN_EXPECTED = 10.0
 Adjustment = Literal["bh", "holm"]

@@ -22,10 +22,10 @@ from typing import Any
 
 from scipy import stats
 
-from .analysis import json_safe
-from .effects import Effect
-from .pooling import MIN_GROUP
-from .priors import LiftPrior, lift_prior
+from archive.analysis import json_safe
+from archive.planning.priors import LiftPrior, lift_prior
+from archive.pooling.effects import Effect
+from archive.pooling.groups import MIN_GROUP
 
 MIN_HISTORY = 10
 FLAT_SD = 0.25

@@ -8,7 +8,7 @@ from typing import Any
 
 from pydantic import BaseModel
 
-from .record import Arm, Decision, Link, Plan, PlanPrior, Record, SegmentCounts
+from archive.records.model import Arm, Decision, Link, Plan, PlanPrior, Record, SegmentCounts
 
 SECTIONS: tuple[tuple[str, type[BaseModel], str], ...] = (
     ("Record", Record, "The top level of `records/<id>.yaml`."),
@@ -23,7 +23,7 @@ SECTIONS: tuple[tuple[str, type[BaseModel], str], ...] = (
 
 def _type_name(annotation: Any) -> str:
     text = str(annotation) if typing.get_origin(annotation) or not isinstance(annotation, type) else annotation.__name__
-    text = re.sub(r"\b(?:typing|datetime|archive\.record)\.", "", text)
+    text = re.sub(r"\b(?:typing|datetime|archive\.records\.model)\.", "", text)
     text = text.replace("NoneType", "null").replace("None", "null").replace("Literal", "one of ")
     return text.replace("<class '", "").replace("'>", "")
 

@@ -1,11 +1,12 @@
-"""Memos for priors, plans and the calibration replay (rendered by :mod:`archive.report`)."""
+"""Memos for priors, plans and the calibration replay (rendered by :mod:`archive.render`)."""
 
 from __future__ import annotations
 
-from .calibration import Calibration
-from .planning import TestPlan
-from .priors import BaselinePrior, InformedLift, LiftPrior
-from .report import Memo, Section, Table, interval, pct
+from archive.planning.calibration import Calibration
+from archive.planning.plan import TestPlan
+from archive.planning.priors import BaselinePrior, InformedLift, LiftPrior
+from archive.render.formats import interval, pct
+from archive.render.model import Memo, Section, Table
 
 
 def prior_memo(prior: LiftPrior, baseline: BaselinePrior | None, lift: float | None) -> Memo:

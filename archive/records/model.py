@@ -1,7 +1,7 @@
 """The record of one test: the models that validate a YAML file, give the JSON Schema and feed the index.
 
 One hierarchy serves all three uses. ``*Core`` classes hold the plain columns; the record models below extend
-them with nested parts and validate the YAML; the table models in :mod:`archive.tables` inherit the same cores,
+them with nested parts and validate the YAML; the table models in :mod:`archive.store.tables` inherit the same cores,
 so a column cannot drift from the field it stores. Every field carries a description: the field reference in
 the docs and the JSON Schema are generated from them.
 """

@@ -1,6 +1,6 @@
 """Pooling the archive: which kinds of changes tend to win, by how much, how often, and how sure we are.
 
-``pool(effects, by)`` groups the comparisons (see :mod:`archive.effects`) and, per group, runs a random-effects
+``pool(effects, by)`` groups the comparisons (see :mod:`archive.pooling.effects`) and, per group, runs a random-effects
 meta-analysis of the log risk ratios: REML tau^2 with the Hartung-Knapp-Sidik-Jonkman interval by default
 (Cochrane's current guidance), DerSimonian-Laird shown as the classic comparison; the prediction interval for
 the next test of that kind follows Higgins, Thompson & Spiegelhalter (2009): t with k-2 df. Groups with fewer
@@ -20,10 +20,10 @@ from typing import Any
 import numpy as np
 from scipy import optimize, special, stats
 
-from .analysis import json_safe
-from .effects import Effect
-from .stats.meta import heterogeneity
-from .stats.meta_groups import GroupPooling, pool_groups
+from archive.analysis import json_safe
+from archive.pooling.effects import Effect
+from archive.stats.meta import heterogeneity
+from archive.stats.meta_groups import GroupPooling, pool_groups
 
 MIN_GROUP = 5  # fewer comparisons than this: shown with a warning (common practice for random-effects pooling)
 GROUPINGS = ("theme", "page_area", "theme,page_area", "tag", "year", "segment")

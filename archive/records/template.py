@@ -17,9 +17,9 @@ from pathlib import Path
 
 from pydantic import ValidationError
 
-from .problems import Problem
-from .record import STATUSES, Arm, Record, canonical_label, is_slug
-from .yamlsource import parse_yaml
+from archive.records.model import STATUSES, Arm, Record, canonical_label, is_slug
+from archive.records.problems import Problem
+from archive.records.yamlsource import parse_yaml
 
 RESULT_COLUMNS = ("arm", "visitors", "conversions", "revenue")
 PLACEHOLDER_HYPOTHESIS = "Because we saw <evidence>, we believe <change> for <visitors> will raise conversion."

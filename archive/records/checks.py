@@ -1,33 +1,20 @@
-"""Checking records: one file at a time, then the archive as a whole.
-
-``load_record`` parses a file (see :mod:`archive.yamlsource`), validates it against :class:`Record` and runs
-the checks that need the whole record (one control, counts that add up, dates in order, ...).
-``archive_problems`` runs the checks that need every record (duplicate ids, ``iterates_on`` targets, a theme
-spelled two ways). ``check_archive`` does both for a folder. Nothing here writes to a file.
+"""The checks a record must pass: on its own (one control, counts that add up, dates in order, ...) and across the
+archive (duplicate ids, iterates_on targets, a theme spelled two ways).
 """
 
 from __future__ import annotations
 
 import difflib
-import gc
-import os
-import types
-import typing
 from collections import defaultdict
-from collections.abc import Callable, Hashable, Iterable, Iterator, Sequence
-from contextlib import contextmanager
-from dataclasses import dataclass, field
+from collections.abc import Callable, Hashable, Iterable, Sequence
+from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
 
-from pydantic import BaseModel, ValidationError
+from archive.records.model import Record, canonical_label, is_slug
+from archive.records.orders import Orders, orders_path, read_orders
+from archive.records.problems import Problem
+from archive.records.yamlsource import YamlDocument, dotted
 
-from .orders import Orders, orders_path, read_orders
-from .problems import Problem
-from .record import Record, canonical_label, is_slug
-from .yamlsource import YamlDocument, YamlProblem, dotted, parse_yaml
-
-RECORD_SUFFIXES = (".yaml", ".yml")
 _TOLERANCE = 1e-6  # relative slack when comparing money sums written with rounding
 
 
@@ -47,104 +34,7 @@ class Summary:
         return cls(path, record.id, record.iterates_on, tuple(record.themes), tuple(record.tags), record.page_area)
 
 
-@dataclass
-class LoadedRecord:
-    path: str
-    record: Record
-    doc: YamlDocument
-    orders: Orders | None = None  # the record's orders file, read and checked
-
-    @property
-    def summary(self) -> Summary:
-        return Summary.of(self.path, self.record)
-
-
-@dataclass
-class CheckReport:
-    records: list[LoadedRecord] = field(default_factory=list)
-    problems: list[Problem] = field(default_factory=list)
-    files: int = 0
-
-
-def record_files(records_dir: Path) -> list[Path]:
-    """The record files of an archive folder (top level only), sorted."""
-    if not records_dir.is_dir():
-        raise FileNotFoundError(f"records folder {records_dir} does not exist; create it or pass --records")
-    found = [p for p in records_dir.iterdir() if p.suffix in RECORD_SUFFIXES and p.is_file()]
-    # Paths in one folder sort as their names do (case-folded where the OS folds case); the key spares the
-    # slow comparison of whole paths.
-    return sorted(found, key=lambda p: os.path.normcase(p.name))
-
-
-# --- one file -------------------------------------------------------------------------------------------
-
-
-def load_record(path: Path, raw: bytes | None = None) -> tuple[LoadedRecord | None, list[Problem]]:
-    """Parse and check one record file. Returns the record (None if it cannot be built) and its problems."""
-    where = str(path)
-    try:
-        doc = parse_yaml(where, path.read_bytes() if raw is None else raw)
-    except YamlProblem as exc:
-        return None, exc.problems
-    try:
-        record = Record.model_validate(doc.data)
-    except ValidationError as exc:
-        return None, [_from_pydantic(doc, err) for err in exc.errors(include_url=False)]
-    checks = _RecordChecks(path, doc, record)
-    problems = checks.run()
-    return LoadedRecord(where, record, doc, checks.orders), problems
-
-
-def _from_pydantic(doc: YamlDocument, err: Any) -> Problem:
-    loc: tuple[Hashable, ...] = tuple(err["loc"])
-    kind = err["type"]
-    if kind == "extra_forbidden":
-        known = _fields_at(loc[:-1])
-        near = difflib.get_close_matches(str(loc[-1]), known, n=1, cutoff=0.6)
-        hint = f"; did you mean {near[0]!r}?" if near else f"; known fields here: {', '.join(known)}"
-        message = f"unknown field {loc[-1]!r}{hint}"
-    elif kind == "missing":
-        message = "required field is missing"
-    else:
-        shown = repr(err.get("input"))
-        if len(shown) > 40:
-            shown = shown[:37] + "..."
-        message = f"{err['msg']} (got {shown})"
-        if kind == "string_type" and isinstance(err.get("input"), bool):
-            message += "; YAML reads yes/no/on/off as true/false: put the word in quotes"
-        if kind == "date_type" and isinstance(err.get("input"), str):
-            message = f"expected a date written YYYY-MM-DD without quotes (got {shown})"
-    return Problem(doc.path, doc.line_of(loc), dotted(loc), message)
-
-
-def _fields_at(loc: Sequence[Hashable]) -> list[str]:
-    """Field names of the model found at ``loc`` inside a record (for 'did you mean')."""
-    annotation: Any = Record
-    for part in loc:
-        annotation = _unwrap(annotation)
-        if isinstance(annotation, type) and issubclass(annotation, BaseModel):
-            info = annotation.model_fields.get(str(part))
-            if info is None:
-                return []
-            annotation = info.annotation
-        else:
-            args = typing.get_args(annotation)
-            annotation = args[-1] if args else None
-    annotation = _unwrap(annotation)
-    if isinstance(annotation, type) and issubclass(annotation, BaseModel):
-        return sorted(annotation.model_fields)
-    return []
-
-
-def _unwrap(annotation: Any) -> Any:
-    """Strip ``X | None``."""
-    if isinstance(annotation, types.UnionType) or typing.get_origin(annotation) is typing.Union:
-        args = [a for a in typing.get_args(annotation) if a is not type(None)]
-        return args[0] if len(args) == 1 else annotation
-    return annotation
-
-
-class _RecordChecks:
+class RecordChecks:
     """The checks that need a whole, well-typed record."""
 
     def __init__(self, path: Path, doc: YamlDocument, record: Record):
@@ -343,8 +233,6 @@ class _RecordChecks:
                 self.add(("links", i, "url"), "only http(s) links are published", "warning")
 
 
-# --- the archive ----------------------------------------------------------------------------------------
-
 LineOf = Callable[[str, Sequence[Hashable]], int]
 
 
@@ -398,44 +286,3 @@ def archive_problems(summaries: Iterable[Summary], line_of: LineOf, unreadable: 
                     )
                 )
     return problems
-
-
-@contextmanager
-def gc_paused() -> Iterator[None]:
-    """Pause the cyclic garbage collector while records pile up in memory.
-
-    Loading an archive keeps every record (and its lines) alive until the archive-wide checks have run: millions
-    of small objects without reference cycles, which the collector would otherwise scan again and again (a third
-    of the time of a large check). Reference counting frees memory as usual meanwhile. Use as a decorator or in
-    a ``with`` statement.
-    """
-    was_enabled = gc.isenabled()
-    gc.disable()
-    try:
-        yield
-    finally:
-        if was_enabled:
-            gc.enable()
-
-
-@gc_paused()
-def check_archive(records_dir: Path, progress: Callable[[int], None] | None = None) -> CheckReport:
-    """Check every record of a folder. Never writes."""
-    report = CheckReport()
-    paths = record_files(records_dir)
-    report.files = len(paths)
-    failed: list[str] = []
-    for path in paths:
-        loaded, problems = load_record(path)
-        report.problems.extend(problems)
-        if loaded is not None:
-            report.records.append(loaded)
-        else:
-            failed.append(path.stem)
-        if progress is not None:
-            progress(1)
-    docs = {lr.path: lr.doc for lr in report.records}
-    summaries = (lr.summary for lr in report.records)
-    report.problems.extend(archive_problems(summaries, lambda p, loc: docs[p].line_of(loc), failed))
-    report.problems.sort()
-    return report

@@ -5,7 +5,7 @@
   default; Dunnett's many-to-one critical value as an option), times 1 - rho^2 for a pre-period covariate
   (CUPED, Deng, Xu, Kohavi & Walker 2013).
 * Days = total visitors / daily visitors, rounded up to whole weeks (common practice: cover weekly cycles).
-* With a history prior (:mod:`archive.priors`): the assurance, P(significant win and true lift > 0) averaged
+* With a history prior (:mod:`archive.planning.priors`): the assurance, P(significant win and true lift > 0) averaged
   over the prior (O'Hagan, Stevens & Campbell 2005), never above its ceiling P(true lift > 0); P(any
   significant win), false ones included; the exaggeration expected of a winner's observed lift at the power the
   test has for the lift the prior expects (Gelman & Carlin 2014); the false positive risk implied by the
@@ -22,8 +22,8 @@ from typing import Literal
 import numpy as np
 from scipy import optimize, stats
 
-from .priors import LiftPrior
-from .stats.power import visitors_per_arm
+from archive.planning.priors import LiftPrior
+from archive.stats.power import visitors_per_arm
 
 Correction = Literal["bonferroni", "dunnett"]
 _Z_NODES, _Z_WEIGHTS = np.polynomial.hermite_e.hermegauss(80)  # Gauss-Hermite (probabilists') for N(0, 1)
@@ -215,12 +215,12 @@ def plan_test(
             )
         result.assumptions.append(f"Prior: {prior.label()}.")
     if theme_win_rate is not None:
-        from .pooling import false_positive_risk
+        from archive.pooling.groups import false_positive_risk
 
         implied = false_positive_risk(theme_win_rate, alpha, power)
         if implied is not None:
             result.theme_success_rate, _ = implied
-            from .pooling import fpr_from_prior
+            from archive.pooling.groups import fpr_from_prior
 
             pi = implied[0]
             result.false_positive_risk = fpr_from_prior(pi, per_alpha, power) if pi > 0 else 1.0

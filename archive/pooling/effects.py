@@ -16,11 +16,11 @@ from collections.abc import Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from .analysis import Analysis, CannotAnalyze, Settings, analyze
-from .orders import Orders
-from .problems import ArchiveInvalid, errors
-from .record import Record
-from .validate import LoadedRecord, check_archive
+from archive.analysis import Analysis, CannotAnalyze, Settings, analyze
+from archive.records.load import LoadedRecord, check_archive
+from archive.records.model import Record
+from archive.records.orders import Orders
+from archive.records.problems import ArchiveInvalid, errors
 
 
 @dataclass

@@ -6,14 +6,13 @@ from pathlib import Path
 
 import numpy as np
 
-from .analysis import Analysis
-from .files import write_replace
-from .pooling import GroupResult, PoolResult
-from .record import Record
-from .segments import SegmentAnalysis
-from .stats import bayes
-
-PALETTE = ["#1b6f8a", "#c9642b", "#5a8f3c", "#8a4f9e", "#b0353f", "#6b6b6b", "#d1a23b"]
+from archive.analysis import Analysis
+from archive.analysis.segments import SegmentAnalysis
+from archive.pooling.groups import GroupResult, PoolResult
+from archive.records.files import write_replace
+from archive.records.model import Record
+from archive.render.palette import PALETTE
+from archive.stats import bayes
 
 
 def _pyplot():  # type: ignore[no-untyped-def]

@@ -15,10 +15,10 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
-from .effects import Effect
-from .pooling import MIN_GROUP, beta_binomial_fit
-from .record import Record
-from .stats.meta import random_effects
+from archive.pooling.effects import Effect
+from archive.pooling.groups import MIN_GROUP, beta_binomial_fit
+from archive.records.model import Record
+from archive.stats.meta import random_effects
 
 
 @dataclass(frozen=True)

@@ -1,0 +1,184 @@
+"""The memo of one analysed test (and its segments)."""
+
+from __future__ import annotations
+
+from archive.analysis import Analysis
+from archive.analysis.segments import SegmentAnalysis
+from archive.render.formats import STATUS_MARK, interval, interval_plain, money, pct, prob, pvalue
+from archive.render.model import Memo, Section, Table
+
+
+def build_memo(a: Analysis, segments: SegmentAnalysis | None = None) -> Memo:
+    rec = a.recommendation
+    lead = [f"Recommendation: {rec.explanation}."]
+    if rec.recorded_outcome is not None:
+        recorded = rec.recorded_outcome + (f" {rec.recorded_arm}" if rec.recorded_arm else "")
+        lead.append(
+            f"Recorded decision: {recorded} (agrees with the figures)."
+            if rec.agrees_with_record
+            else f"Recorded decision: {recorded}. Note: {rec.disagreement}"
+        )
+    else:
+        lead.append("No decision recorded yet.")
+    if not a.trusted:
+        failed = ", ".join(c.name for c in a.checks if c.status == "failed")
+        lead.append(f"Trust check failed ({failed}): every verdict below is downgraded one step.")
+    checks = Section(
+        "Trust checks",
+        tables=[Table(["check", "status", "detail"], [[c.name, STATUS_MARK[c.status], c.detail] for c in a.checks])],
+    )
+    by_arm = {c.arm: c for c in a.comparisons}
+    rows = []
+    for arm in a.arms:
+        c = by_arm.get(arm.name)
+        rows.append(
+            [
+                arm.name + (" (control)" if arm.control else ""),
+                f"{arm.visitors:,}",
+                f"{arm.conversions:,}",
+                f"{pct(arm.rate, 2)} {interval_plain(arm.rate_low, arm.rate_high)}",
+                "" if c is None else f"{pct(c.lift, 1, True)} {interval(c.lift_low, c.lift_high)}",
+                "" if c is None else pvalue(c.p_value),
+                "" if c is None else pvalue(c.p_holm),
+                "" if c is None else prob(c.prob_beat_control),
+                prob(arm.prob_best),
+                f"{arm.expected_loss * 100:.3f} pp",
+                "" if c is None else c.verdict,
+            ]
+        )
+    conversion = Section(
+        "Conversion (primary metric)",
+        tables=[
+            Table(
+                [
+                    "arm",
+                    "visitors",
+                    "conversions",
+                    "rate (95% credible)",
+                    "lift vs control (95% CI)",
+                    "p",
+                    "Holm p",
+                    "P(beats control)",
+                    "P(best)",
+                    "expected loss (rate points)",
+                    "verdict",
+                ],
+                rows,
+            )
+        ],
+        bullets=[f"{c.arm}: {c.verdict}: {c.reason}." for c in a.comparisons]
+        + [
+            f"{c.arm}: credible interval of the lift {interval(c.credible_lift_low, c.credible_lift_high)}; "
+            f"equivalence within +/-{pct(c.equivalence_margin)}: p {pvalue(c.equivalence_p)}"
+            + (" (zero cell: 0.5 added to each cell)" if c.zero_cell_correction else "")
+            for c in a.comparisons
+        ],
+    )
+    sections = [checks, conversion, _revenue_section(a)]
+    if segments is not None:
+        sections += segment_sections(segments)
+    sections.append(Section("Assumptions", bullets=list(a.assumptions)))
+    return Memo(f"{a.title} ({a.id})", lead, sections)
+
+
+def _revenue_section(a: Analysis) -> Section:
+    control = next(x for x in a.arms if x.control)
+    rows = [
+        [
+            f"{control.name} (control)",
+            money(control.revenue_per_visitor),
+            money(control.average_order_value),
+            "",
+            "",
+            "",
+        ]
+    ]
+    bullets = []
+    for c in a.comparisons:
+        arm = next(x for x in a.arms if x.name == c.arm)
+        r = c.revenue
+        diff = money(r.difference, True)
+        if r.difference_low is not None:
+            diff += f" [{money(r.difference_low, True)}, {money(r.difference_high, True)}]"
+        rows.append(
+            [
+                c.arm,
+                money(arm.revenue_per_visitor),
+                money(arm.average_order_value),
+                diff,
+                f"{pct(r.lift, 1, True)} {interval(r.lift_low, r.lift_high)}" if r.lift is not None else "n/a",
+                r.method,
+            ]
+        )
+        bullets.append(f"{c.arm}: {r.note}.")
+        if r.bootstrap is not None:
+            b = r.bootstrap
+            bullets.append(
+                f"{c.arm}: bootstrap ({b.replicates} replicates) RPV difference "
+                f"[{money(b.difference_low, True)}, {money(b.difference_high, True)}], "
+                f"lift {interval(b.lift_low, b.lift_high)}."
+            )
+        if r.extreme_orders is not None:
+            e = r.extreme_orders
+            share = "n/a" if e.top_share_of_difference is None else pct(e.top_share_of_difference, 0)
+            survives = "keeps its sign" if e.sign_survives else "changes sign"
+            bullets.append(
+                f"{c.arm}: orders above {e.cap:,.2f} make {share} of the RPV difference; capped difference "
+                f"{money(r.capped_difference, True)} [{money(r.capped_difference_low, True)}, "
+                f"{money(r.capped_difference_high, True)}]; without each arm's top 1% of orders the difference "
+                f"{survives} ({money(e.difference_without_top, True)})."
+            )
+    table = Table(
+        ["arm", "revenue/visitor", "avg order value", "RPV difference (95% CI)", "RPV lift (95% CI)", "method"], rows
+    )
+    return Section("Revenue (secondary metrics)", tables=[table], bullets=bullets)
+
+
+def segment_sections(seg: SegmentAnalysis) -> list[Section]:
+    sections = []
+    for d in seg.dimensions:
+        rows = [
+            [
+                r.segment + (" (small)" if r.small else ""),
+                r.arm,
+                f"{r.visitors:,} / {r.control_visitors:,}",
+                f"{pct(r.share_of_arm)} / {pct(r.share_of_control)}",
+                f"{pct(r.rate, 2)} / {pct(r.control_rate, 2)}",
+                f"{pct(r.lift, 1, True)} {interval(r.lift_low, r.lift_high)}",
+                pvalue(r.p_value),
+                pvalue(r.p_adjusted),
+                pvalue(r.srm_p_value),
+            ]
+            for r in d.rows
+        ]
+        headers = [
+            "segment",
+            "arm",
+            "visitors (arm / control)",
+            "share of traffic",
+            "rate (arm / control)",
+            "lift (95% CI)",
+            "p",
+            f"{seg.adjustment} p",
+            "split p",
+        ]
+        bullets = [f"{t.arm}: {t.statement}." for t in d.effect_tests]
+        for m in d.mix_checks:
+            if m.adjusted_lift is not None:
+                bullets.append(
+                    f"{m.arm}: pooled lift {pct(m.pooled_lift, 1, True)}; mix-adjusted (Mantel-Haenszel) "
+                    f"{pct(m.adjusted_lift, 1, True)} {interval(m.adjusted_low, m.adjusted_high)}."
+                )
+            if m.warning:
+                bullets.append(f"Warning: {m.warning}.")
+        sections.append(
+            Section(
+                f"Segments by {d.dimension} ({d.label})",
+                paragraphs=[] if d.preregistered else ["Exploratory cut: not named in the plan before the test."],
+                tables=[Table(headers, rows)],
+                bullets=bullets,
+            )
+        )
+    if seg.dimensions:
+        sections[-1].bullets += seg.notes
+    return sections

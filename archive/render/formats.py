@@ -1,0 +1,60 @@
+"""Numbers and record text as people read them; rounding happens here and only here."""
+
+from __future__ import annotations
+
+import html
+import re
+
+STATUS_MARK = {"ok": "ok", "warning": "check", "failed": "FAILED"}
+
+
+def pct(value: float | None, digits: int = 1, signed: bool = False) -> str:
+    if value is None:
+        return "n/a"
+    return f"{value * 100:+.{digits}f}%" if signed else f"{value * 100:.{digits}f}%"
+
+
+def interval(low: float | None, high: float | None, digits: int = 1) -> str:
+    if low is None or high is None:
+        return "n/a"
+    return f"[{pct(low, digits, True)}, {pct(high, digits, True)}]"
+
+
+def money(value: float | None, signed: bool = False) -> str:
+    if value is None:
+        return "n/a"
+    return f"{value:+,.3f}" if signed else f"{value:,.3f}"
+
+
+def pvalue(p: float | None) -> str:
+    if p is None:
+        return "n/a"
+    return "<0.0001" if p < 1e-4 else f"{p:.4f}"
+
+
+def prob(p: float) -> str:
+    return f"{p:.3f}"
+
+
+def interval_plain(low: float, high: float) -> str:
+    return f"[{pct(low, 2)}, {pct(high, 2)}]"
+
+
+def interval_plain_rate(r) -> str:  # type: ignore[no-untyped-def]
+    if r.low is None:
+        return ""
+    return f"[{pct(r.low, 0)}, {pct(r.high, 0)}]"
+
+
+_MD_SPECIAL = re.compile(r"([\\`*_\[\]|~])")
+
+
+_MD_LINE_START = re.compile(r"^(?:([#+\-=])(?=\s|$)|(>)|(\d+)([.)])(?=\s|$))")
+
+
+def md_text(text: str) -> str:
+    """Text from a record made safe for Markdown and HTML: one line, HTML escaped, Markdown syntax escaped (so
+    no raw HTML, link, emphasis or table cell break survives)."""
+    one_line = " ".join(text.split())
+    escaped = _MD_SPECIAL.sub(r"\\\1", html.escape(one_line, quote=False))
+    return _MD_LINE_START.sub(lambda m: "\\" + (m[1] or m[2]) if m[1] or m[2] else m[3] + "\\" + m[4], escaped)
