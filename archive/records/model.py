@@ -11,6 +11,7 @@ from __future__ import annotations
 import datetime as dt
 import json
 import re
+import unicodedata
 from typing import Any, Literal, get_args
 
 from pydantic import ConfigDict
@@ -28,8 +29,10 @@ def is_slug(text: str) -> bool:
 
 
 def canonical_label(text: str) -> str:
-    """The one spelling of a theme, tag or page area: lowercase words joined by hyphens."""
-    return "-".join(re.findall(r"[a-z0-9]+", text.lower()))
+    """The one spelling of a theme, tag or page area, and the slug of any name that reaches a file path:
+    its letters and digits in any script (Unicode NFKC, case-folded), words joined by single hyphens.
+    Empty when the text holds no letter or digit."""
+    return "-".join(re.findall(r"[^\W_]+", unicodedata.normalize("NFKC", text).casefold()))
 
 
 Status = Literal["planned", "running", "finished", "stopped-early"]
