@@ -1,8 +1,10 @@
-"""Shared fixtures: a valid record, a small archive in a temp folder, and index engines (SQLite, PostgreSQL)."""
+"""Shared fixtures: a valid record, a small archive in a temp folder, a store per test, the demo archive's store,
+and store engines (SQLite, PostgreSQL)."""
 
 from __future__ import annotations
 
 import os
+import sqlite3
 import uuid
 from collections.abc import Iterator
 from pathlib import Path
@@ -125,3 +127,37 @@ def engine(request: pytest.FixtureRequest, tmp_path: Path) -> Iterator[Engine]:
     with admin.begin() as conn:
         conn.execute(text(f'DROP SCHEMA "{schema}" CASCADE'))
     admin.dispose()
+
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+@pytest.fixture(autouse=True)
+def own_store(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> str:
+    """Every test gets its own store (ARCHIVE_DB), so that no test reads or writes another's, nor the repository's
+    own ``.archive/``. Tests of the default location unset it."""
+    url = f"sqlite:///{tmp_path / 'store' / 'index.sqlite'}"
+    (tmp_path / "store").mkdir(exist_ok=True)
+    monkeypatch.setenv("ARCHIVE_DB", url)
+    monkeypatch.delenv("ARCHIVE_RECORDS", raising=False)
+    return url
+
+
+@pytest.fixture(scope="session")
+def _demo_store_file(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    from archive.api import Archive
+
+    path = tmp_path_factory.mktemp("demo-store") / "index.sqlite"
+    Archive.open(records=ROOT / "records", db=f"sqlite:///{path}").index()
+    return path
+
+
+@pytest.fixture
+def demo_db(_demo_store_file: Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> str:
+    """A synced store of the demo archive (a copy per test), set as ARCHIVE_DB; returns its URL."""
+    target = tmp_path / "demo-store.sqlite"
+    with sqlite3.connect(_demo_store_file) as source, sqlite3.connect(target) as copy:
+        source.backup(copy)  # the WAL's pages included
+    url = f"sqlite:///{target}"
+    monkeypatch.setenv("ARCHIVE_DB", url)
+    return url

@@ -184,6 +184,7 @@ def test_extreme_orders_case(tmp_path: Path) -> None:
 def test_cli_analyze_formats_and_plot(tmp_path: Path) -> None:
     rng = np.random.default_rng(4)
     path = _write_orders_record(tmp_path, rng.lognormal(3.8, 0.5, 320), rng.lognormal(3.8, 0.5, 300), 10_000)
+    assert runner.invoke(app, ["index", "--records", str(tmp_path)]).exit_code == 0
     result = runner.invoke(app, ["analyze", "t", "--records", str(tmp_path), "--format", "json", "--replicates", "200"])
     assert result.exit_code == 0, result.output
     data = json.loads(result.stdout)
@@ -217,7 +218,10 @@ def test_cli_analyze_formats_and_plot(tmp_path: Path) -> None:
 
 def test_cli_analyze_errors(tmp_path: Path) -> None:
     result = runner.invoke(app, ["analyze", "nope", "--records", str(tmp_path)])
-    assert result.exit_code == 1 and "no record 'nope'" in result.stderr
+    assert result.exit_code == 1 and "run `archive index` first" in result.stderr  # no store yet: none is made
+    assert runner.invoke(app, ["index", "--records", str(tmp_path)]).exit_code == 0
+    result = runner.invoke(app, ["analyze", "nope", "--records", str(tmp_path)])
+    assert result.exit_code == 1 and "no test 'nope'" in result.stderr
     (tmp_path / "x.yaml").write_text("id: x\n")
     result = runner.invoke(app, ["analyze", "x", "--records", str(tmp_path)])
     assert result.exit_code == 1 and "required field is missing" in result.stdout

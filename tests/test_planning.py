@@ -142,6 +142,7 @@ def test_calibration_on_demo_archive_beats_a_flat_prior() -> None:
 def test_cli_prior_plan_calibrate(tmp_path: Path) -> None:
     records = tmp_path / "records"
     shutil.copytree(ROOT / "records", records)
+    assert runner.invoke(app, ["index", "--records", str(records)]).exit_code == 0
     result = runner.invoke(app, ["prior", "--theme", "social-proof", "--records", str(records), "-f", "json"])
     assert result.exit_code == 0, result.output
     assert 0 < json.loads(result.stdout)["prob_positive"] < 1

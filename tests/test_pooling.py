@@ -232,7 +232,7 @@ def test_recovers_known_theme_effects_over_seeds() -> None:
     assert np.mean(covered_tau2) >= 0.85, np.mean(covered_tau2)
 
 
-def test_cli_pool_on_demo_archive(tmp_path: Path) -> None:
+def test_cli_pool_on_demo_archive(tmp_path: Path, demo_db: str) -> None:
     result = runner.invoke(app, ["pool", "--records", str(ROOT / "records"), "--format", "json"])
     assert result.exit_code == 0, result.output
     data = json.loads(result.stdout)

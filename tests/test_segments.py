@@ -215,6 +215,7 @@ def test_cli_by_dimension(tmp_path: Path) -> None:
         }
     )
     (tmp_path / "seg.yaml").write_text(yaml.safe_dump(r.model_dump(exclude_none=True), sort_keys=False))
+    assert runner.invoke(app, ["index", "--records", str(tmp_path)]).exit_code == 0
     common = ["analyze", "seg", "--records", str(tmp_path), "--by", "device"]
     result = runner.invoke(app, [*common, "--format", "json", "--forest", str(tmp_path / "forest.svg")])
     assert result.exit_code == 0, result.output

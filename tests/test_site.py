@@ -107,11 +107,10 @@ def test_deterministic_and_incremental(built: Path, tmp_path: Path) -> None:
         two = {k: v for k, v in snapshot(second / folder).items()}
         assert one == two, f"{folder} differs between two builds of the same archive"
     again = build_site(records, first, "Fixture archive")
-    assert again.written == [] and again.fresh_entries == 0
+    assert again.written == []
     path = records / "basket-bar-2.yaml"
     path.write_text(path.read_text().replace("The threshold bar helped most", "The threshold bar helped a lot"))
     changed = build_site(records, first, "Fixture archive")
-    assert changed.fresh_entries == 1
     assert "tests/basket-bar-2.md" in changed.written and "learnings.md" in changed.written
     assert "tests/tricky-text.md" not in changed.written and "tests/basket-bar-lift.svg" not in changed.written
 

@@ -7,11 +7,17 @@ import sys
 from dataclasses import asdict
 from enum import StrEnum
 from pathlib import Path
-from typing import Annotated
+from typing import TYPE_CHECKING, Annotated, Any
 
 import typer
 
-from archive.cli.common import RecordsOption, err, out, print_problems, user_errors
+from archive.cli.common import DbOption, NoSyncOption, RecordsOption, err, open_archive, out, ready, user_errors
+from archive.render.markdown import render_markdown
+from archive.render.terminal import render_terminal
+
+if TYPE_CHECKING:
+    from archive.analysis import Settings
+    from archive.api import TestAnalysis
 
 
 class Adjust(StrEnum):
@@ -26,7 +32,7 @@ class MemoFormat(StrEnum):
 
 
 def analyze(
-    record_id: Annotated[str | None, typer.Argument(metavar="ID", help="Id of a test in the records folder.")] = None,
+    record_id: Annotated[str | None, typer.Argument(metavar="ID", help="Id of a filed test.")] = None,
     file: Annotated[
         Path | None, typer.Option("--file", help="Analyse this record file instead (not yet filed).")
     ] = None,
@@ -37,8 +43,12 @@ def analyze(
     margin: Annotated[
         float | None, typer.Option(help="Equivalence margin on relative lift (default: the plan's minimum_lift).")
     ] = None,
-    srm_alpha: Annotated[float, typer.Option(help="Sample ratio mismatch alarm threshold.")] = 0.001,
-    replicates: Annotated[int, typer.Option(help="Bootstrap replicates for order-level revenue.")] = 1000,
+    srm_alpha: Annotated[
+        float | None, typer.Option(help="Sample ratio mismatch alarm threshold (default 0.001).")
+    ] = None,
+    replicates: Annotated[
+        int | None, typer.Option(help="Bootstrap replicates for order-level revenue (default 1000).")
+    ] = None,
     by: Annotated[
         list[str] | None, typer.Option("--by", help="Segment dimension to slice by (repeat for several).")
     ] = None,
@@ -49,57 +59,44 @@ def analyze(
     forest: Annotated[
         Path | None, typer.Option(help="With --by: write one forest plot per arm, named <stem>-<arm><suffix>.")
     ] = None,
-    records: RecordsOption = Path("records"),
+    records: RecordsOption = None,
+    db: DbOption = None,
+    no_sync: NoSyncOption = False,
 ) -> None:
     """Analyse one test: trust checks, lift and probabilities per arm, revenue, verdicts, a recommendation."""
-    from archive.analysis import Settings
-    from archive.analysis import analyze as run_analysis
-    from archive.analysis.segments import analyze_segments
-    from archive.records.load import load_record
-    from archive.records.problems import errors
-    from archive.render.analysis import build_memo
-    from archive.render.markdown import render_markdown
-    from archive.render.terminal import render_terminal
+    import dataclasses
+
+    from archive.api import Archive
+
     with user_errors():
-        path = _record_path(record_id, file, records)
-        loaded, problems = load_record(path)
-        if loaded is None or errors(problems):
-            print_problems(problems)
-            err.print(f"{path} has errors; fix them (see `archive check`) before analysing.", markup=False)
-            raise typer.Exit(1)
-        settings = Settings(margin=margin, srm_alpha=srm_alpha, bootstrap_replicates=replicates)
-        result = run_analysis(loaded.record, loaded.orders, settings)
-        segments = analyze_segments(loaded.record, by, adjust.value, settings) if by else None
-        history = _history(loaded.record, records, prior) if prior != "uniform" else None
-        written = []
-        if plot is not None:
-            from archive.render.plots import posterior_lift_plot
+        if (record_id is None) == (file is None):
+            raise ValueError("give either a test ID or --file PATH")
+        changes: dict[str, Any] = {
+            k: v for k, v in (("margin", margin), ("srm_alpha", srm_alpha), ("bootstrap_replicates", replicates))
+        }
+        changes = {k: v for k, v in changes.items() if v is not None}
+        if file is not None:
+            if prior != "uniform":
+                raise ValueError("--prior history needs a filed test (give its ID)")
+            settings = dataclasses.replace(_archive_settings(records), **changes)
+            result = Archive.analyze_file(file, settings, by, adjust.value)
+        else:
+            archive = open_archive(records, db, no_sync)
+            ready(archive)
+            from archive.cli.catalog import known_value
 
-            written.append(posterior_lift_plot(loaded.record, result, plot, settings.prior))
-        if forest is not None and segments is not None:
-            from archive.render.plots import segment_forest_plot
-
-            for c in result.comparisons:
-                target = forest.with_name(f"{forest.stem}-{c.arm}{forest.suffix or '.svg'}")
-                written.append(segment_forest_plot(segments, c.arm, target))
+            known_value("id", "test", record_id or "", archive.ids())
+            settings = dataclasses.replace(archive.settings, **changes)
+            result = archive.analyze(record_id or "", settings, by, adjust.value, prior)
+        written = _plots(result, plot, forest, settings)
     if fmt is MemoFormat.json:
-        data = result.to_dict()
-        data["segments"] = segments.to_dict() if segments is not None else None
-        data["history_prior"] = (
-            None
-            if history is None
-            else {
-                "prior": {**asdict(history[0]), "label": history[0].label()},
-                "comparisons": [asdict(i) for i in history[1]],
-            }
-        )
-        sys.stdout.write(json.dumps(data, indent=2, ensure_ascii=False) + "\n")
+        sys.stdout.write(json.dumps(_json(result), indent=2, ensure_ascii=False) + "\n")
     else:
-        memo = build_memo(result, segments)
-        if history is not None:
+        memo = result.memo
+        if result.history is not None:
             from archive.render.planning import informed_section
 
-            memo.sections.insert(2, informed_section(history[1], history[0]))
+            memo.sections.insert(2, informed_section(result.history[1], result.history[0]))
         if fmt is MemoFormat.markdown:
             sys.stdout.write(render_markdown(memo))
         else:
@@ -108,36 +105,42 @@ def analyze(
         err.print(f"plot written to {path}", markup=False)
 
 
-def _history(record, records: Path, prior: str):  # type: ignore[no-untyped-def]
-    """The history prior for this test and each comparison's lift under it."""
-    from archive.planning.priors import informed_lift, prior_for_record
-    from archive.pooling.effects import load_archive_effects
-    from archive.stats.proportions import log_risk_ratio
+def _archive_settings(records: Path | None) -> Settings:
+    """The settings of the archive around us, or the defaults outside any archive."""
+    from archive.analysis import Settings
+    from archive.api import NoArchive
 
-    if prior != "history":
-        raise ValueError("--prior is uniform or history")
-    _, effects = load_archive_effects(records)
-    chosen = prior_for_record(effects, record)
-    control = record.control_arm()
-    minimum = record.plan.minimum_lift if record.plan else None
-    items = []
-    for arm in record.arms:
-        if arm.control:
-            continue
-        log_rr, var, _ = log_risk_ratio(arm.conversions, arm.visitors, control.conversions, control.visitors)
-        items.append(informed_lift(arm.name, log_rr, var**0.5, chosen, minimum))
-    return chosen, items
+    try:
+        return open_archive(records).settings
+    except NoArchive:
+        return Settings()
 
 
-def _record_path(record_id: str | None, file: Path | None, records: Path) -> Path:
-    if (record_id is None) == (file is None):
-        raise ValueError("give either a test ID or --file PATH")
-    if file is not None:
-        if not file.is_file():
-            raise FileNotFoundError(f"{file} not found")
-        return file
-    for suffix in (".yaml", ".yml"):
-        candidate = records / f"{record_id}{suffix}"
-        if candidate.is_file():
-            return candidate
-    raise FileNotFoundError(f"no record {record_id!r} in {records}; list them with `archive list`")
+def _json(result: TestAnalysis) -> dict[str, object]:
+    data = result.analysis.to_dict()
+    data["segments"] = result.segments.to_dict() if result.segments is not None else None
+    history = result.history
+    data["history_prior"] = (
+        None
+        if history is None
+        else {
+            "prior": {**asdict(history[0]), "label": history[0].label()},
+            "comparisons": [asdict(i) for i in history[1]],
+        }
+    )
+    return data
+
+
+def _plots(result: TestAnalysis, plot: Path | None, forest: Path | None, settings) -> list[Path]:  # type: ignore[no-untyped-def]
+    written = []
+    if plot is not None:
+        from archive.render.plots import posterior_lift_plot
+
+        written.append(posterior_lift_plot(result.analysis, plot, settings.prior))
+    if forest is not None and result.segments is not None:
+        from archive.render.plots import segment_forest_plot
+
+        for c in result.analysis.comparisons:
+            target = forest.with_name(f"{forest.stem}-{c.arm}{forest.suffix or '.svg'}")
+            written.append(segment_forest_plot(result.segments, c.arm, target))
+    return written

@@ -16,11 +16,14 @@ from archive.cli.common import (
     Format,
     FormatOption,
     JsonFlag,
+    NoSyncOption,
     RecordsOption,
     chosen_format,
     emit_rows,
     err,
+    open_archive,
     out,
+    ready,
     show_progress,
     user_errors,
 )
@@ -43,29 +46,33 @@ UntilOpt = Annotated[
 ]
 
 
-def index(records: RecordsOption = Path("records"), db: DbOption = None) -> None:
-    """Load the records into the index (only changed files are read again)."""
-    from archive.store.engine import make_engine, resolve_url
-    from archive.store.sync import index_archive
-
-    url = resolve_url(records, db)
+def index(
+    records: RecordsOption = None,
+    db: DbOption = None,
+    full: Annotated[
+        bool, typer.Option("--full", help="Re-hash every file instead of trusting unchanged stamps.")
+    ] = False,
+) -> None:
+    """Sync the store with the records: read, check and analyse what changed (creates the store if needed)."""
     with user_errors():
-        engine = make_engine(url)
+        archive = open_archive(records, db)
+        waiting = lambda: err.print("another sync is running; waiting for it to finish")  # noqa: E731
         if show_progress():
             from rich.progress import Progress
 
             with Progress(console=err, transient=True) as bar:
-                task = bar.add_task("indexing", total=None)
-                report = index_archive(records, engine, progress=lambda n: bar.advance(task, n))
+                task = bar.add_task("analysing changed records", total=None)
+                report = archive.index(full, progress=lambda n: bar.advance(task, n), on_wait=waiting)
         else:
-            report = index_archive(records, engine)
+            report = archive.index(full, on_wait=waiting)
     for problem in report.warnings:
         out.print(str(problem), style="yellow", markup=False)
-    note = " (index rebuilt for a new schema version)" if report.rebuilt else ""
+    if report.rebuilt:
+        err.print("the store was made by another version of archive: rebuilt from the records.")
     err.print(
-        f"indexed {report.total} record(s){note}: {len(report.added)} added, {len(report.updated)} updated, "
-        f"{len(report.removed)} removed, {report.unchanged} unchanged; {len(report.warnings)} warning(s). "
-        f"Index: {url}",
+        f"indexed {report.total} record(s): {len(report.added)} added, {len(report.updated)} updated, "
+        f"{len(report.reanalysed)} re-analysed for new settings, {len(report.removed)} removed, "
+        f"{report.unchanged} unchanged; {len(report.warnings)} warning(s). Store: {archive.display_url}",
         markup=False,
     )
 
@@ -86,17 +93,36 @@ def _filters(theme, page_area, status, outcome, owner, tag, since, until, text=N
     )
 
 
-def _query(records: Path, db: str | None, filters: Filters, fmt: Format, title: str) -> None:
-    from archive.store.engine import make_engine, prepare, resolve_url
-    from archive.store.query import LIST_COLUMNS, find_tests, index_size
+_FILTER_KINDS = (("theme", "theme"), ("page_area", "page area"), ("tag", "tag"), ("owner", "owner"))
+_FIXED = {"status": ("planned", "running", "finished", "stopped-early"), "outcome": ("ship", "keep-control", "iterate")}
+
+
+def known_value(kind: str, label: str, value: str, known: list[str] | tuple[str, ...]) -> None:
+    """Refuse a filter value nobody uses, suggesting the nearest one in use."""
+    import difflib
+
+    if value in known:
+        return
+    near = difflib.get_close_matches(value, list(known), n=1, cutoff=0.6)
+    hint = f"; did you mean {near[0]!r}?" if near else (f"; in use: {', '.join(known)}" if len(known) <= 12 else "")
+    raise LookupError(f"no {label} {value!r}{hint}")
+
+
+def _query(records: Path | None, db: str | None, filters: Filters, fmt: Format, title: str, no_sync: bool) -> None:
+    from archive.store.query import LIST_COLUMNS
 
     with user_errors():
-        engine = make_engine(resolve_url(records, db))
-        prepare(engine)
-        if index_size(engine) == 0:
-            err.print("the index is empty: run `archive index` first.")
-            raise typer.Exit(1)
-        rows = find_tests(engine, filters)
+        archive = open_archive(records, db, no_sync)
+        ready(archive)
+        for name, fixed in _FIXED.items():
+            value = getattr(filters, name)
+            if value:
+                known_value(name, name, value, fixed)
+        for name, label in _FILTER_KINDS:
+            value = getattr(filters, name)
+            if value:
+                known_value(name, label, value, archive.values(name))
+        rows = archive.find(filters)
     emit_rows(rows, LIST_COLUMNS, fmt, title)
     if fmt is Format.table:
         err.print(f"{len(rows)} test(s).")
@@ -114,12 +140,13 @@ def list_tests(
     fmt: FormatOption = Format.table,
     as_json: JsonFlag = False,
     as_csv: CsvFlag = False,
-    records: RecordsOption = Path("records"),
+    records: RecordsOption = None,
     db: DbOption = None,
+    no_sync: NoSyncOption = False,
 ) -> None:
-    """List indexed tests, filtered by theme, page area, status, outcome, owner, tag or dates."""
+    """List tests, filtered by theme, page area, status, outcome, owner, tag or dates."""
     filters = _filters(theme, page_area, status, outcome, owner, tag, since, until)
-    _query(records, db, filters, chosen_format(fmt, as_json, as_csv), "Tests")
+    _query(records, db, filters, chosen_format(fmt, as_json, as_csv), "Tests", no_sync)
 
 
 def search(
@@ -135,30 +162,32 @@ def search(
     fmt: FormatOption = Format.table,
     as_json: JsonFlag = False,
     as_csv: CsvFlag = False,
-    records: RecordsOption = Path("records"),
+    records: RecordsOption = None,
     db: DbOption = None,
+    no_sync: NoSyncOption = False,
 ) -> None:
     """Find tests whose title, hypothesis or learnings contain every word of TEXT."""
     filters = _filters(theme, page_area, status, outcome, owner, tag, since, until, words)
-    _query(records, db, filters, chosen_format(fmt, as_json, as_csv), f"Tests matching {words!r}")
+    _query(records, db, filters, chosen_format(fmt, as_json, as_csv), f"Tests matching {words!r}", no_sync)
 
 
 def show(
     record_id: Annotated[str, typer.Argument(metavar="ID", help="Id of the test.")],
     fmt: Annotated[Format, typer.Option("--format", "-f", help="table (readable) or json.")] = Format.table,
     as_json: JsonFlag = False,
-    records: RecordsOption = Path("records"),
+    records: RecordsOption = None,
     db: DbOption = None,
+    no_sync: NoSyncOption = False,
 ) -> None:
-    """Show one indexed test: what was tried, the numbers, the decision and the learnings."""
-    from archive.store.engine import make_engine, prepare, resolve_url
-    from archive.store.query import get_record
-
+    """Show one test: what was tried, the numbers, the decision and the learnings."""
     fmt = chosen_format(fmt, as_json)
     with user_errors():
-        engine = make_engine(resolve_url(records, db))
-        prepare(engine)
-        record = get_record(engine, record_id)
+        if fmt is Format.csv:
+            raise ValueError("show gives a table or json; use `archive analyze ID -f csv` for the arms' figures")
+        archive = open_archive(records, db, no_sync)
+        ready(archive)
+        known_value("id", "test", record_id, archive.ids())
+        record = archive.record(record_id)
     if fmt is not Format.table:
         sys.stdout.write(json.dumps(record.model_dump(mode="json"), indent=2, ensure_ascii=False) + "\n")
         return
@@ -166,9 +195,11 @@ def show(
 
 
 def _print_record(r: Record) -> None:
+    from rich.markup import escape
     from rich.table import Table
+    from rich.text import Text
 
-    out.print(f"[bold]{r.title}[/bold]  ({r.id})")
+    out.print(f"[bold]{escape(r.title)}[/bold]  ({escape(r.id)})")
     out.print(
         f"status {r.status} · {r.started or '?'} to {r.ended or '?'} · page area {r.page_area} · "
         f"themes {', '.join(r.themes)}" + (f" · owner {r.owner}" if r.owner else ""),
@@ -184,7 +215,7 @@ def _print_record(r: Record) -> None:
         rate = f"{arm.conversions / arm.visitors:.2%}" if arm.visitors and arm.conversions is not None else ""
         rpv = f"{arm.revenue / arm.visitors:.3f}" if arm.visitors and arm.revenue is not None else ""
         table.add_row(
-            arm.name + (" (control)" if arm.control else ""),
+            Text(arm.name + (" (control)" if arm.control else "")),
             *("" if v is None else f"{v:,}" for v in (arm.visitors, arm.conversions)),
             rate,
             "" if arm.orders is None else f"{arm.orders:,}",

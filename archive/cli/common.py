@@ -11,7 +11,7 @@ import sys
 from collections.abc import Iterator, Sequence
 from enum import StrEnum
 from pathlib import Path
-from typing import Annotated, Any
+from typing import TYPE_CHECKING, Annotated, Any
 
 import typer
 from rich.console import Console
@@ -19,22 +19,48 @@ from rich.console import Console
 from archive.records.files import FileExists
 from archive.records.problems import ArchiveInvalid, Problem
 
+if TYPE_CHECKING:
+    from archive.api import Archive
+
 RECORDS_ENV = "ARCHIVE_RECORDS"
 
 RecordsOption = Annotated[
-    Path,
+    Path | None,
     typer.Option(
         "--records",
         "-r",
         envvar=RECORDS_ENV,
-        help="Folder of YAML records.",
+        help="Folder of YAML records (default: records/ of the first folder upwards that has one).",
         file_okay=False,
+        show_default=False,
     ),
 ]
 DbOption = Annotated[
     str | None,
-    typer.Option("--db", envvar="ARCHIVE_DB", help="SQLAlchemy URL of the index (default: SQLite in .archive/)."),
+    typer.Option(
+        "--db", envvar="ARCHIVE_DB", help="SQLAlchemy URL of the store (default: SQLite in <archive>/.archive/)."
+    ),
 ]
+NoSyncOption = Annotated[
+    bool,
+    typer.Option("--no-sync", help="Read the store as it is, without first reading changed records."),
+]
+
+
+def open_archive(records: Path | None, db: str | None = None, no_sync: bool = False) -> Archive:
+    """The archive the command runs on (found upwards from here, or named by --records)."""
+    from archive.api import Archive
+
+    return Archive.open(records=records, db=db, sync=not no_sync)
+
+
+def ready(archive: Archive) -> None:
+    """Sync the store before reading it (unless --no-sync), saying in one line what changed."""
+    if not archive.sync_first:
+        return
+    report = archive.sync(on_wait=lambda: err.print("another sync is running; waiting for it to finish"))
+    if report.changed:
+        err.print(report.line(), markup=False)
 
 
 class Format(StrEnum):
@@ -79,16 +105,32 @@ def user_errors() -> Iterator[None]:
         err.print(f"error: {exc.args[0] if exc.args else exc}", markup=False)
         raise typer.Exit(1) from None
     except ValueError as exc:
+        from archive.analysis import CannotAnalyze
+
         err.print(f"error: {exc}", markup=False)
-        raise typer.Exit(2) from None
+        raise typer.Exit(1 if isinstance(exc, CannotAnalyze) else 2) from None
     except Exception as exc:
         from sqlalchemy.exc import SQLAlchemyError
 
         if isinstance(exc, SQLAlchemyError):
-            err.print(f"error: the index database could not be used: {exc}", markup=False)
-            err.print("check --db / ARCHIVE_DB, or delete the .archive folder and run `archive index`.")
+            err.print(f"error: {database_message(exc)}", markup=False)
             raise typer.Exit(2) from None
         raise
+
+
+def database_message(exc: Exception) -> str:
+    """A database error as one sentence with what to do (never the SQL, never a password)."""
+    from sqlalchemy.exc import OperationalError
+
+    cause = getattr(exc, "orig", None) or exc
+    first = str(cause).strip().splitlines()[0] if str(cause).strip() else type(cause).__name__
+    where = ""
+    if isinstance(exc, OperationalError):
+        return (
+            f"the store{where} could not be used ({type(cause).__name__}: {first}); check --db / ARCHIVE_DB and "
+            "that the database is reachable, then run `archive index`"
+        )
+    return f"the store{where} is not as expected ({type(cause).__name__}: {first}); run `archive index` to rebuild it"
 
 
 def _plain(value: Any) -> Any:
@@ -111,12 +153,13 @@ def emit_rows(rows: list[dict[str, Any]], columns: Sequence[str], fmt: Format, t
             writer.writerow([_plain(row.get(c)) for c in columns])
         return
     from rich.table import Table
+    from rich.text import Text
 
-    table = Table(title=title or None, show_lines=False, header_style="bold")
+    table = Table(title=Text(title) if title else None, show_lines=False, header_style="bold")
     for column in columns:
         table.add_column(column.replace("_", " "), overflow="fold")
-    for row in rows:
-        table.add_row(*("" if row.get(c) is None else str(_plain(row.get(c))) for c in columns))
+    for row in rows:  # Text: record text is never read as markup
+        table.add_row(*(Text("" if row.get(c) is None else str(_plain(row.get(c)))) for c in columns))
     out.print(table)
 
 

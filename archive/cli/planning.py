@@ -5,13 +5,14 @@ from __future__ import annotations
 import json
 import sys
 from dataclasses import asdict
-from pathlib import Path
 from typing import Annotated
 
 import typer
 
 from archive.cli.analyze import MemoFormat
-from archive.cli.common import RecordsOption, err, out, user_errors
+from archive.cli.common import DbOption, NoSyncOption, RecordsOption, err, open_archive, out, ready, user_errors
+from archive.render.markdown import render_markdown
+from archive.render.terminal import render_terminal
 
 
 def prior(
@@ -19,21 +20,25 @@ def prior(
     page_area: Annotated[str | None, typer.Option(help="Page area of the new test.")] = None,
     lift: Annotated[float | None, typer.Option(help="Also give P(true lift > this), e.g. 0.05.")] = None,
     fmt: Annotated[str, typer.Option("--format", "-f", help="table, json, markdown or yaml.")] = "table",
-    records: RecordsOption = Path("records"),
+    records: RecordsOption = None,
+    db: DbOption = None,
+    no_sync: NoSyncOption = False,
 ) -> None:
     """The prior for the true lift of a new test of a theme (and page area), from the archive."""
-    from archive.planning.priors import baseline_prior, lift_prior, prior_yaml
-    from archive.pooling.effects import load_archive_effects
-    from archive.render.markdown import render_markdown
+    from archive.cli.catalog import known_value
+    from archive.planning.priors import prior_yaml
     from archive.render.planning import prior_memo
-    from archive.render.terminal import render_terminal
 
     with user_errors():
-        loaded, effects = load_archive_effects(records)
-        result = lift_prior(effects, theme, page_area)
-        baseline = baseline_prior([lr.record for lr in loaded], page_area) if page_area else None
         if fmt not in ("table", "json", "markdown", "yaml"):
             raise ValueError("--format is table, json, markdown or yaml")
+        archive = open_archive(records, db, no_sync)
+        ready(archive)
+        known_value("theme", "theme", theme, archive.values("theme"))
+        if page_area:
+            known_value("page_area", "page area", page_area, archive.values("page_area"))
+        found = archive.prior(theme, page_area)
+        result, baseline = found.lift, found.baseline
     if fmt == "json":
         data = {
             **asdict(result),
@@ -68,50 +73,44 @@ def plan(
     write: Annotated[str | None, typer.Option(help="Save the plan as a new planned record with this id.")] = None,
     title: Annotated[str | None, typer.Option(help="Title of the record written by --write.")] = None,
     fmt: Annotated[MemoFormat, typer.Option("--format", "-f", help="table, json or markdown.")] = MemoFormat.table,
-    records: RecordsOption = Path("records"),
+    records: RecordsOption = None,
+    db: DbOption = None,
+    no_sync: NoSyncOption = False,
 ) -> None:
     """Visitors per arm, whole weeks, and (with --theme) the assurance and risks history implies."""
-    from archive.planning.plan import plan_test
-    from archive.planning.priors import baseline_prior, lift_prior
-    from archive.pooling.effects import load_archive_effects
-    from archive.pooling.groups import pool
-    from archive.render.markdown import render_markdown
     from archive.render.planning import plan_memo
-    from archive.render.terminal import render_terminal
 
     with user_errors():
-        loaded, effects = (None, None)
-        if theme or baseline is None:
-            loaded, effects = load_archive_effects(records)
-        if baseline is None:
-            if page_area is None or loaded is None:
-                raise ValueError("give --baseline, or --page-area to take it from the archive")
-            fitted = baseline_prior([lr.record for lr in loaded], page_area)
-            if fitted is None:
-                raise ValueError(f"no history of control arms on page area {page_area!r}: give --baseline")
-            baseline = fitted.mean
+        if minimum_lift >= 1:
+            raise ValueError(f"--minimum-lift is a share: write 0.05 for +5% (got {minimum_lift:g})")
         weights = [float(w) for w in split.split(",")] if split else None
-        history = win_rate = None
-        if theme and effects is not None:
-            history = lift_prior(effects, theme, page_area)
-            groups = {g.key: g for g in pool(effects, "theme", permutations=0).groups}
-            if theme in groups:
-                win_rate = groups[theme].wins.shrunk
-        result = plan_test(
-            baseline,
-            minimum_lift,
-            alpha,
-            power,
-            arms,
-            weights,
-            daily_visitors,
-            rho,
-            correction,  # type: ignore[arg-type]
-            history,
-            win_rate,
-        )
+        needs_history = bool(theme) or baseline is None or write is not None
+        archive = open_archive(records, db, no_sync) if needs_history else None
+        if archive is not None:
+            ready(archive)
+        if archive is None:
+            from archive.planning.plan import plan_test
+
+            assert baseline is not None
+            result = plan_test(baseline, minimum_lift, alpha, power, arms, weights, daily_visitors, rho, correction)  # type: ignore[arg-type]
+        else:
+            result = archive.plan(
+                baseline,
+                minimum_lift,
+                page_area=page_area,
+                theme=theme,
+                alpha=alpha,
+                power=power,
+                arms=arms,
+                split=weights,
+                daily_visitors=daily_visitors,
+                rho=rho,
+                correction=correction,
+            )
         if write:
-            _write_plan(records, write, title, page_area, theme, result, weights, history)
+            assert archive is not None
+            history = archive.prior(theme, page_area).lift if theme else None
+            _write_plan(archive.records_dir, write, title, page_area, theme, result, weights, history)
     if fmt is MemoFormat.json:
         sys.stdout.write(json.dumps(asdict(result), indent=2) + "\n")
     elif fmt is MemoFormat.markdown:
@@ -119,7 +118,7 @@ def plan(
     else:
         render_terminal(plan_memo(result), out)
     if write:
-        err.print(f"wrote {records / (write + '.yaml')} (status planned); fill in the hypothesis and arms.")
+        err.print(f"wrote {write}.yaml in the records folder (status planned); fill in the hypothesis and arms.")
 
 
 def _write_plan(records, record_id, title, page_area, theme, result, weights, history) -> None:  # type: ignore[no-untyped-def]
@@ -136,18 +135,17 @@ def _write_plan(records, record_id, title, page_area, theme, result, weights, hi
 
 def calibrate(
     fmt: Annotated[MemoFormat, typer.Option("--format", "-f", help="table, json or markdown.")] = MemoFormat.table,
-    records: RecordsOption = Path("records"),
+    records: RecordsOption = None,
+    db: DbOption = None,
+    no_sync: NoSyncOption = False,
 ) -> None:
     """Replay the archive in date order: were history-based forecasts better than a flat prior?"""
-    from archive.planning.calibration import calibrate as run
-    from archive.pooling.effects import load_archive_effects
-    from archive.render.markdown import render_markdown
     from archive.render.planning import calibration_memo
-    from archive.render.terminal import render_terminal
 
     with user_errors():
-        _, effects = load_archive_effects(records)
-        result = run(effects)
+        archive = open_archive(records, db, no_sync)
+        ready(archive)
+        result = archive.calibrate()
     if fmt is MemoFormat.json:
         sys.stdout.write(json.dumps(result.to_dict(), indent=2) + "\n")
     elif fmt is MemoFormat.markdown:

@@ -11,7 +11,9 @@ from typing import Annotated
 import typer
 
 from archive.cli.analyze import MemoFormat
-from archive.cli.common import RecordsOption, err, out, user_errors
+from archive.cli.common import DbOption, NoSyncOption, RecordsOption, err, open_archive, out, ready, user_errors
+from archive.render.markdown import render_markdown
+from archive.render.terminal import render_terminal
 
 
 class Method(StrEnum):
@@ -22,7 +24,7 @@ class Method(StrEnum):
 
 def pool(
     by: Annotated[
-        str, typer.Option(help="theme, page_area, theme,page_area, tag, year, or segment:DIMENSION.")
+        str, typer.Option(help="theme, page-area, theme,page-area, tag, year, or segment:DIMENSION.")
     ] = "theme",
     method: Annotated[
         Method, typer.Option(help="tau² estimator (REML default; DL is shown as a comparison).")
@@ -33,31 +35,24 @@ def pool(
     plots: Annotated[
         Path | None, typer.Option(help="Write a forest plot per group and a funnel plot here (SVG).")
     ] = None,
-    records: RecordsOption = Path("records"),
+    records: RecordsOption = None,
+    db: DbOption = None,
+    no_sync: NoSyncOption = False,
 ) -> None:
     """Pool every comparison by group: pooled lift, spread, prediction interval, win rates, realistic lifts."""
-    from archive.pooling.effects import load_archive_effects
-    from archive.pooling.groups import pool as run_pool
-    from archive.render.markdown import render_markdown
     from archive.render.pooling import build_pool_memo
-    from archive.render.terminal import render_terminal
+
     with user_errors():
-        grouping, segment = (by, None)
-        if by.startswith("segment:"):
-            grouping, segment = "segment", by.split(":", 1)[1]
-        _, effects = load_archive_effects(records, segment=segment)
-        if not effects:
-            raise ValueError("no finished test with results to pool")
-        result = run_pool(effects, grouping, method=method.value, hksj=hksj, include_untrusted=include_untrusted)
-        if segment:
-            result.by = by
+        archive = open_archive(records, db, no_sync)
+        ready(archive)
+        result = archive.pool(by.replace("page-area", "page_area"), method.value, hksj, include_untrusted)
         written = []
         if plots is not None:
+            from archive.records.model import canonical_label
             from archive.render.plots import funnel_plot, group_forest_plot
 
             for group in result.groups:
-                safe = "".join(c if c.isalnum() or c in "-_" else "-" for c in group.key)
-                written.append(group_forest_plot(group, plots / f"forest-{safe}.svg"))
+                written.append(group_forest_plot(group, plots / f"forest-{canonical_label(group.key) or 'group'}.svg"))
             written.append(funnel_plot(result, plots / "funnel.svg"))
     if fmt is MemoFormat.json:
         sys.stdout.write(json.dumps(result.to_dict(), indent=2, ensure_ascii=False) + "\n")

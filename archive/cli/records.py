@@ -9,20 +9,30 @@ from typing import Annotated
 
 import typer
 
-from archive.cli.common import Format, RecordsOption, emit_rows, err, out, print_problems, user_errors
+from archive.cli.common import (
+    DbOption,
+    Format,
+    RecordsOption,
+    emit_rows,
+    err,
+    open_archive,
+    out,
+    print_problems,
+    user_errors,
+)
 
 
 def check(
-    records: RecordsOption = Path("records"),
+    records: RecordsOption = None,
+    db: DbOption = None,
     strict: Annotated[bool, typer.Option("--strict", help="Fail on warnings too.")] = False,
     fmt: Annotated[Format, typer.Option("--format", "-f", help="table (one line per problem) or json.")] = Format.table,
 ) -> None:
-    """Validate every record; print each problem as path:line: field: message."""
-    from archive.records.load import check_archive
+    """Validate every record; print each problem as path:line: field: message. Writes nothing."""
     from archive.records.problems import blocking
 
     with user_errors():
-        report = check_archive(records)
+        report = open_archive(records, db).check()
     failing = blocking(report.problems, strict)
     if fmt is Format.json:
         emit_rows([p.as_dict() for p in report.problems], ["path", "line", "field", "message", "severity"], Format.json)
@@ -50,7 +60,7 @@ def new(
     started: Annotated[dt.datetime | None, typer.Option(formats=["%Y-%m-%d"], help="First day.")] = None,
     ended: Annotated[dt.datetime | None, typer.Option(formats=["%Y-%m-%d"], help="Last day.")] = None,
     hypothesis: Annotated[str, typer.Option(help="The hypothesis, in one sentence.")] = "",
-    records: RecordsOption = Path("records"),
+    records: RecordsOption = None,
 ) -> None:
     """Start a record from options or a results CSV; never overwrites a file."""
     from archive.records.files import write_new
@@ -78,7 +88,8 @@ def new(
         except ScaffoldError as exc:
             print_problems(exc.problems)
             raise typer.Exit(2) from None
-        target = records / f"{record_id}.yaml"
+        folder = records if records is not None else open_archive(None).records_dir
+        target = folder / f"{record_id}.yaml"
         write_new(target, text)
     out.print(f"wrote {target}; fill in the blanks, then run `archive check`.", markup=False)
 

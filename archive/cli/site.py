@@ -8,7 +8,16 @@ from typing import Annotated
 
 import typer
 
-from archive.cli.common import RecordsOption, err, show_progress, user_errors
+from archive.cli.common import (
+    DbOption,
+    NoSyncOption,
+    RecordsOption,
+    err,
+    open_archive,
+    ready,
+    show_progress,
+    user_errors,
+)
 
 app = typer.Typer(help="Publish the archive as a browsable site (MkDocs).", no_args_is_help=True)
 
@@ -19,22 +28,25 @@ OutOption = Annotated[Path, typer.Option("--out", help="Output folder (docs/, mk
 def build(
     out: OutOption = Path("site-build"),
     title: Annotated[str, typer.Option(help="Site title.")] = "Test archive",
-    records: RecordsOption = Path("records"),
+    records: RecordsOption = None,
+    db: DbOption = None,
+    no_sync: NoSyncOption = False,
 ) -> None:
-    """Generate Markdown and SVG from the archive and build the HTML site."""
-    from archive.site.build import build_site
+    """Generate Markdown and SVG from the store and build the HTML site."""
     from archive.site.engine import MkDocsProblems
 
     with user_errors():
+        archive = open_archive(records, db, no_sync)
+        ready(archive)
         try:
-            report = build_site(records, out, title, progress=(lambda m: err.print(m)) if show_progress() else None)
+            report = archive.build_site(out, title, progress=(lambda m: err.print(m)) if show_progress() else None)
         except MkDocsProblems as exc:
             for message in exc.messages:
                 err.print(f"mkdocs: {message}", markup=False)
             raise typer.Exit(1) from None
     err.print(
-        f"{report.pages} pages ({len(report.written)} files written, {len(report.removed)} removed, "
-        f"{report.fresh_entries} tests analysed afresh) in {report.generate_seconds:.1f} s + MkDocs "
+        f"{report.pages} pages ({len(report.written)} files written, {len(report.removed)} removed) "
+        f"in {report.generate_seconds:.1f} s + MkDocs "
         f"{report.mkdocs_seconds:.1f} s. Open {report.html}/index.html",
         markup=False,
     )
@@ -44,16 +56,18 @@ def build(
 def serve(
     out: OutOption = Path("site-build"),
     port: Annotated[int, typer.Option(help="Port on localhost.")] = 8000,
-    records: RecordsOption = Path("records"),
+    records: RecordsOption = None,
+    db: DbOption = None,
+    no_sync: NoSyncOption = False,
 ) -> None:
     """Build, then serve the site on http://127.0.0.1:PORT until interrupted."""
     import functools
     import http.server
 
-    from archive.site.build import build_site
-
     with user_errors():
-        report = build_site(records, out)
+        archive = open_archive(records, db, no_sync)
+        ready(archive)
+        report = archive.build_site(out)
     handler = functools.partial(http.server.SimpleHTTPRequestHandler, directory=str(report.html))
     with http.server.ThreadingHTTPServer(("127.0.0.1", port), handler) as server:
         err.print(f"serving {report.html} at http://127.0.0.1:{port}/ (Ctrl-C to stop)")

@@ -140,9 +140,13 @@ def record_effects_from(record: Record, analysis: Analysis) -> list[Effect]:
     return out
 
 
-def segment_effects(record: Record, dimension: str, settings: Settings | None = None) -> list[Effect]:
-    """One effect per segment value and treatment, from the record's segment counts (control split as above)."""
-    base = {e.arm: e for e in record_effects(record, None, settings)}
+def segment_effects(
+    record: Record, dimension: str, settings: Settings | None = None, base_effects: list[Effect] | None = None
+) -> list[Effect]:
+    """One effect per segment value and treatment, from the record's segment counts (control split as above).
+    ``base_effects`` are the record's whole-test effects when already at hand."""
+    whole = record_effects(record, None, settings) if base_effects is None else base_effects
+    base = {e.arm: e for e in whole}
     if not base or dimension not in record.segments:
         return []
     control = record.control_arm().name

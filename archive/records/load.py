@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import difflib
 import gc
+import hashlib
 import os
 import types
 import typing
@@ -19,9 +20,9 @@ from pydantic import BaseModel, ValidationError
 
 from archive.records.checks import RecordChecks, Summary, archive_problems
 from archive.records.model import Record
-from archive.records.orders import Orders
+from archive.records.orders import Orders, orders_path
 from archive.records.problems import Problem
-from archive.records.yamlsource import YamlDocument, YamlProblem, dotted, parse_yaml
+from archive.records.yamlsource import YamlDocument, YamlProblem, dotted, parse_yaml, read_yaml
 
 RECORD_SUFFIXES = (".yaml", ".yml")
 
@@ -159,3 +160,53 @@ def check_archive(records_dir: Path, progress: Callable[[int], None] | None = No
     report.problems.extend(archive_problems(summaries, lambda p, loc: docs[p].line_of(loc), failed))
     report.problems.sort()
     return report
+
+
+# --- what changed: stamps, the one hasher, lines of unchanged files -------------------------------------
+
+
+def file_stamp(record_path: Path, orders_file: str | None) -> str:
+    """``size:mtime_ns:inode`` of a record file and of its orders file: when it is unchanged since the last sync,
+    the file is not read again (``--full`` reads every file anyway)."""
+    parts = [_stamp(record_path)]
+    if orders_file:
+        target = orders_path(record_path, orders_file)
+        parts.append(_stamp(target) if target is not None else "none")
+    return "|".join(parts)
+
+
+def _stamp(path: Path) -> str:
+    try:
+        st = path.stat()
+    except OSError:
+        return "missing"
+    return f"{st.st_size}:{st.st_mtime_ns}:{st.st_ino}"
+
+
+def content_hash(record_path: Path, raw: bytes, orders_file: str | None) -> str:
+    """SHA-256 of a record's bytes and of its orders file's bytes: the key of everything derived from it."""
+    digest = hashlib.sha256(raw).hexdigest()
+    if orders_file:
+        target = orders_path(record_path, orders_file)
+        if target is not None and target.is_file():
+            digest += ":" + hashlib.sha256(target.read_bytes()).hexdigest()
+        else:
+            digest += ":missing"
+    return digest
+
+
+class LineFinder:
+    """Lines of fields for archive-wide problems. Documents at hand are used; other files are parsed only when a
+    problem needs a line in them."""
+
+    def __init__(self, docs: dict[str, YamlDocument] | None = None):
+        self.docs = dict(docs or {})
+
+    def __call__(self, path: str, loc: Sequence[Hashable]) -> int:
+        doc = self.docs.get(path)
+        if doc is None:
+            try:
+                doc = self.docs[path] = read_yaml(Path(path))
+            except YamlProblem:
+                return 0
+        return doc.line_of(loc)

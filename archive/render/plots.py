@@ -10,7 +10,6 @@ from archive.analysis import Analysis
 from archive.analysis.segments import SegmentAnalysis
 from archive.pooling.groups import GroupResult, PoolResult
 from archive.records.files import write_replace
-from archive.records.model import Record
 from archive.render.palette import PALETTE
 from archive.stats import bayes
 
@@ -26,9 +25,7 @@ def _pyplot():  # type: ignore[no-untyped-def]
     return plt
 
 
-def posterior_lift_plot(
-    record: Record, analysis: Analysis, path: Path, prior: tuple[float, float] = (1.0, 1.0)
-) -> Path:
+def posterior_lift_plot(analysis: Analysis, path: Path, prior: tuple[float, float] = (1.0, 1.0)) -> Path:
     """Posterior density of each arm's relative lift in conversion against control; writes SVG or PNG."""
     plt = _pyplot()
     control = next(a for a in analysis.arms if a.control)
@@ -55,7 +52,7 @@ def posterior_lift_plot(
     ax.axvline(0, color="#333333", lw=0.8, ls="--")
     ax.set_xlabel("relative lift in conversion against control (%)")
     ax.set_ylabel("posterior density")
-    ax.set_title(f"{record.title}: where the true lift probably lies (shaded: 95% credible)", fontsize=9)
+    ax.set_title(f"{analysis.title}: where the true lift probably lies (shaded: 95% credible)", fontsize=9)
     ax.legend(frameon=False, fontsize=8)
     ax.spines[["top", "right"]].set_visible(False)
     fig.tight_layout()

@@ -17,7 +17,7 @@ from archive.pooling.effects import Effect
 from archive.pooling.groups import PoolResult, pool
 from archive.records.files import write_replace
 from archive.site import pages, svg
-from archive.site.entries import load_entries
+from archive.site.entries import TestEntry, entries_for_folder
 
 REFERENCE = Path(__file__).resolve().parents[2] / "site"
 NAV = """nav:
@@ -39,7 +39,6 @@ class BuildReport:
     pages: int = 0
     written: list[str] = field(default_factory=list)
     removed: list[str] = field(default_factory=list)
-    fresh_entries: int = 0
     generate_seconds: float = 0.0
     mkdocs_seconds: float = 0.0
     html: Path | None = None
@@ -79,13 +78,10 @@ def _quarter_chart(data: pages.SiteData) -> bytes:
     return svg.bar_chart(pages.quarter_counts(data), "tests started per quarter")
 
 
-def generate(
-    records_dir: Path, out: Path, progress: Callable[[str], None] | None = None
-) -> tuple[dict[str, bytes], int]:
-    """Every generated file (path under docs/ -> bytes) and the number of entries computed afresh."""
-    entries, _, fresh = load_entries(records_dir, out / ".cache" / "tests")
+def generate(entries: list[TestEntry], progress: Callable[[str], None] | None = None) -> dict[str, bytes]:
+    """Every generated file (path under docs/ -> bytes)."""
     if progress:
-        progress(f"{len(entries)} tests ({fresh} analysed afresh)")
+        progress(f"{len(entries)} tests")
     effects: list[Effect] = [e for entry in entries for e in entry.effects]
     by_theme: PoolResult | None = pool(effects, "theme", permutations=200) if effects else None
     by_area: PoolResult | None = pool(effects, "page_area", permutations=0) if effects else None
@@ -115,7 +111,7 @@ def generate(
     add("tags.md", pages.tags_page(data))
     for name in ("record-fields.md", "analysis-json.md"):
         add(f"reference/{name}", (REFERENCE / "reference" / name).read_bytes())
-    return files, fresh
+    return files
 
 
 def write_docs(out: Path, files: dict[str, bytes]) -> tuple[list[str], list[str]]:
@@ -143,12 +139,18 @@ def build_site(
     title: str = "Test archive",
     run_mkdocs: bool = True,
     progress: Callable[[str], None] | None = None,
+    entries: list[TestEntry] | None = None,
 ) -> BuildReport:
+    """Write the site's Markdown and SVG under ``out/docs`` and build ``out/html``. ``entries`` come from the
+    store (:meth:`archive.Archive.build_site`); without them the records folder is synced into an in-memory store
+    first."""
     if out.resolve() == records_dir.resolve() or records_dir.resolve() in out.resolve().parents:
         raise ValueError("build the site outside the records folder")
     report = BuildReport(out)
     start = time.perf_counter()
-    files, report.fresh_entries = generate(records_dir, out, progress)
+    if entries is None:
+        entries = entries_for_folder(records_dir)
+    files = generate(entries, progress)
     report.pages = sum(1 for name in files if name.endswith(".md"))
     report.written, report.removed = write_docs(out, files)
     config = out / "mkdocs.yml"

@@ -1,34 +1,26 @@
-"""What the site needs of each test, computed once per record version and cached by the record's content hash.
+"""What the site needs of each test, built from the store (which holds each record's analysis).
 
 An entry holds the record, its effects for pooling, and the rendered pieces of its page that depend on nothing
-but the record itself (the analysis memo in Markdown and the per-test charts). A rebuild after one record changed
-recomputes only that record's entry.
+but the record itself (the analysis memo in Markdown and the per-test charts).
 """
 
 from __future__ import annotations
 
-import hashlib
-import pickle
-from collections.abc import Hashable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
+from sqlalchemy import Engine, select
 
-from archive.analysis import Analysis, CannotAnalyze, Settings, analyze
-from archive.analysis.segments import analyze_segments
-from archive.pooling.effects import Effect, record_effects_from
-from archive.records.load import LoadedRecord, Summary, archive_problems, load_record, record_files
-from archive.records.model import record_from_json
-from archive.records.orders import orders_path
-from archive.records.problems import ArchiveInvalid, Problem, errors
-from archive.records.yamlsource import YamlDocument, YamlProblem, read_yaml
+from archive.analysis import Analysis, Settings
+from archive.analysis.segments import SegmentAnalysis
+from archive.pooling.effects import Effect
+from archive.records.model import Record, record_from_json
 from archive.render.analysis import build_memo
 from archive.render.markdown import markdown_sections
 from archive.site import svg
 from archive.stats import bayes
-
-CACHE_VERSION = "1"
+from archive.store.tables import ANALYSIS, RECORD
 
 
 @dataclass
@@ -44,16 +36,6 @@ class TestEntry:
     disagreement: str | None
     memo_markdown: str
     charts: dict[str, bytes] = field(default_factory=dict)  # file name -> SVG
-
-
-def digest_of(path: Path, raw: bytes, orders_file: str | None) -> str:
-    """Content hash of a record and its orders file (the cache key of its entry)."""
-    h = hashlib.sha256(CACHE_VERSION.encode())
-    h.update(raw)
-    if orders_file:
-        target = orders_path(path, orders_file)
-        h.update(target.read_bytes() if target is not None and target.is_file() else b"missing")
-    return h.hexdigest()
 
 
 def _lift_chart(analysis: Analysis, title: str) -> bytes:
@@ -80,14 +62,14 @@ def _lift_chart(analysis: Analysis, title: str) -> bytes:
     return svg.density_chart(curves, title)
 
 
-def build_entry(loaded: LoadedRecord, digest: str, settings: Settings) -> TestEntry:
-    record = loaded.record
-    try:
-        analysis = analyze(record, loaded.orders, settings)
-    except CannotAnalyze:
-        return TestEntry(record.id, digest, record.model_dump_json(), [], {}, True, None, None, None, "")
-    dims = list(record.segments)
-    segments = analyze_segments(record, dims, "bh", settings) if dims else None
+def _entry(
+    record: Record,
+    digest: str,
+    record_json: str,
+    analysis: Analysis,
+    segments: SegmentAnalysis | None,
+    effects: list[Effect],
+) -> TestEntry:
     memo = build_memo(analysis, segments)
     charts = {f"{record.id}-lift.svg": _lift_chart(analysis, f"{record.title}: posterior of the lift")}
     if segments is not None:
@@ -108,8 +90,8 @@ def build_entry(loaded: LoadedRecord, digest: str, settings: Settings) -> TestEn
     return TestEntry(
         id=record.id,
         digest=digest,
-        record_json=record.model_dump_json(),
-        effects=record_effects_from(record, analysis),
+        record_json=record_json,
+        effects=effects,
         verdicts={c.arm: c.verdict for c in analysis.comparisons},
         trusted=analysis.trusted,
         action=rec.action,
@@ -120,64 +102,39 @@ def build_entry(loaded: LoadedRecord, digest: str, settings: Settings) -> TestEn
     )
 
 
-def _read_cache(path: Path) -> TestEntry | None:
-    if not path.exists():
-        return None
-    try:
-        cached = pickle.loads(path.read_bytes())
-    except Exception:  # a stale or foreign cache file is simply rebuilt
-        return None
-    return cached if isinstance(cached, TestEntry) else None
+def entries_from_store(engine: Engine) -> list[TestEntry]:
+    """An entry per stored record (in file-name order), built from what the store already knows: no record is
+    parsed or analysed again."""
+    from archive.analysis.jsonable import loads, loads_list
+    from archive.store.query import all_analyses
 
-
-def load_entries(
-    records_dir: Path, cache_dir: Path, settings: Settings | None = None
-) -> tuple[list[TestEntry], list[Problem], int]:
-    """Entries for every record, reusing cached ones whose files did not change (those are not parsed again).
-    Returns the entries, the problems found (changed files and archive-wide checks) and how many were fresh.
-    Raises :class:`ArchiveInvalid` when the archive has errors."""
-    s = settings or Settings(bootstrap_replicates=400)
-    cache_dir.mkdir(parents=True, exist_ok=True)
-    entries: list[TestEntry] = []
-    problems: list[Problem] = []
-    summaries: list[Summary] = []
-    docs: dict[str, YamlDocument] = {}
-    failed: list[str] = []
-    fresh = 0
-    for path in record_files(records_dir):
-        raw = path.read_bytes()
-        cache_file = cache_dir / f"{path.stem}.pickle"
-        cached = _read_cache(cache_file)
-        record = record_from_json(cached.record_json) if cached is not None else None
-        if cached is not None and record is not None and cached.digest == digest_of(path, raw, record.orders_file):
-            entries.append(cached)
-            summaries.append(Summary.of(str(path), record))
+    analyses = {a.record_id: a for a in all_analyses(engine)}
+    with engine.connect() as conn:
+        rows = conn.execute(
+            select(RECORD.c.id, RECORD.c.content_hash, RECORD.c.body, ANALYSIS.c.effects_json)
+            .select_from(RECORD.outerjoin(ANALYSIS, ANALYSIS.c.record_id == RECORD.c.id))
+            .order_by(RECORD.c.path)
+        ).all()
+    entries = []
+    for record_id, digest, body, effects_blob in rows:
+        stored = analyses.get(record_id)
+        if stored is None or stored.error is not None:
+            entries.append(TestEntry(record_id, digest, body, [], {}, True, None, None, None, ""))
             continue
-        loaded, found = load_record(path, raw)
-        problems += found
-        if loaded is None or errors(found):
-            failed.append(path.stem)
-            continue
-        docs[loaded.path] = loaded.doc
-        summaries.append(loaded.summary)
-        entry = build_entry(loaded, digest_of(path, raw, loaded.record.orders_file), s)
-        cache_file.write_bytes(pickle.dumps(entry))
-        entries.append(entry)
-        fresh += 1
+        analysis = loads(Analysis, stored.result_json)
+        segments = None if stored.segments_json == "null" else loads(SegmentAnalysis, stored.segments_json)
+        record = record_from_json(body)
+        effects = loads_list(Effect, effects_blob or "[]")
+        entries.append(_entry(record, digest, body, analysis, segments, effects))
+    return entries
 
-    def line_of(where: str, loc: Sequence[Hashable]) -> int:
-        if where not in docs:
-            try:
-                docs[where] = read_yaml(Path(where))
-            except YamlProblem:
-                return 0
-        return docs[where].line_of(loc)
 
-    problems += archive_problems(summaries, line_of, failed)
-    if errors(problems):
-        raise ArchiveInvalid(problems)
-    live = {f"{e.id}.pickle" for e in entries}
-    for stale in cache_dir.glob("*.pickle"):
-        if stale.name not in live:
-            stale.unlink()
-    return entries, sorted(problems), fresh
+def entries_for_folder(records_dir: Path, settings: Settings | None = None) -> list[TestEntry]:
+    """Entries of a records folder without a store on disk: synced into an in-memory store first (for building a
+    site straight from a folder, as the tests do)."""
+    from archive.store.engine import make_engine
+    from archive.store.sync import index_archive
+
+    engine = make_engine("sqlite://")
+    index_archive(records_dir, engine, settings=settings)
+    return entries_from_store(engine)

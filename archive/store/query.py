@@ -19,7 +19,7 @@ from sqlalchemy.sql import ColumnElement
 
 from archive.records.model import Record, record_from_json
 from archive.store.engine import search_document_sql
-from archive.store.tables import ARM, RECORD, SEGMENT, TAG, THEME
+from archive.store.tables import ANALYSIS, ARM, RECORD, SEGMENT, TAG, THEME
 
 if TYPE_CHECKING:
     import pandas as pd
@@ -154,3 +154,84 @@ def segments_frame(engine: Engine, filters: Filters | None = None) -> pd.DataFra
     frame = pd.DataFrame([dict(r) for r in rows], columns=columns)
     frame = frame[frame["record_id"].isin(ids)]
     return frame.sort_values(["record_id", "dimension", "value", "arm"]).reset_index(drop=True)
+
+
+# --- what the analysis found ----------------------------------------------------------------------------
+
+
+@dataclass
+class StoredAnalysis:
+    """The stored analysis of one test, as JSON texts (see :mod:`archive.store.derived`)."""
+
+    record_id: str
+    version: str
+    error: str | None
+    trusted: bool | None
+    action: str | None
+    result_json: str
+    memo_json: str
+    segments_json: str
+
+
+def get_analysis(engine: Engine, record_id: str) -> StoredAnalysis:
+    """The stored analysis of a test. Raises :class:`NotIndexed` for an unknown id."""
+    A = ANALYSIS.c
+    query = select(A.record_id, A.version, A.error, A.trusted, A.action, A.result_json, A.memo_json, A.segments_json)
+    with engine.connect() as conn:
+        row = conn.execute(query.where(A.record_id == record_id)).first()
+    if row is None:
+        raise NotIndexed(f"no analysis of {record_id!r} in the store; check the id or run `archive index`")
+    return StoredAnalysis(*row)
+
+
+def all_analyses(engine: Engine) -> list[StoredAnalysis]:
+    """Every stored analysis, by record id."""
+    A = ANALYSIS.c
+    query = select(A.record_id, A.version, A.error, A.trusted, A.action, A.result_json, A.memo_json, A.segments_json)
+    with engine.connect() as conn:
+        return [StoredAnalysis(*row) for row in conn.execute(query.order_by(A.record_id))]
+
+
+def effects_json(engine: Engine, segment: str | None = None) -> list[str]:
+    """The stored effects of every pooled test (JSON lists, in start-date order), or its segment effects for one
+    dimension."""
+    column = ANALYSIS.c.effects_json if segment is None else ANALYSIS.c.segment_effects_json
+    query = (
+        select(column).select_from(ANALYSIS.join(RECORD, RECORD.c.id == ANALYSIS.c.record_id)).order_by(RECORD.c.path)
+    )
+    with engine.connect() as conn:
+        blobs = [b for (b,) in conn.execute(query)]
+    if segment is None:
+        return [b for b in blobs if b != "[]"]
+    import json
+
+    out = []
+    for blob in blobs:
+        if blob != "{}":
+            part = json.loads(blob).get(segment)
+            if part:
+                out.append(json.dumps(part))
+    return out
+
+
+def all_records(engine: Engine) -> list[Record]:
+    """Every stored record, by file name."""
+    with engine.connect() as conn:
+        return [record_from_json(b) for (b,) in conn.execute(select(RECORD.c.body).order_by(RECORD.c.path))]
+
+
+def record_ids(engine: Engine) -> list[str]:
+    with engine.connect() as conn:
+        return [i for (i,) in conn.execute(select(RECORD.c.id).order_by(RECORD.c.id))]
+
+
+def label_values(engine: Engine, kind: str) -> list[str]:
+    """The values in use of ``theme``, ``tag``, ``page_area``, ``status``, ``outcome`` or ``owner``."""
+    if kind == "theme":
+        column = THEME.c.theme
+    elif kind == "tag":
+        column = TAG.c.tag
+    else:
+        column = getattr(RECORD.c, kind)
+    with engine.connect() as conn:
+        return sorted(v for (v,) in conn.execute(select(column).distinct()) if v is not None)

@@ -1,8 +1,10 @@
-"""The index's tables: SQLModel table models built on the same cores as the record models.
+"""The store's tables: what was filed (SQLModel table models built on the same cores as the record models) and
+what the archive derived from it (the analysis of each record).
 
-Table models do not validate on creation; rows are always made from a :class:`~archive.records.model.Record` that was
-validated first. ``body`` keeps the whole validated record as JSON so that ``show`` and the analyses can rebuild
-it without reading the YAML again.
+Table models do not validate on creation; rows are always made from a :class:`~archive.records.model.Record` that
+was validated first. ``body`` keeps the whole validated record as JSON so that every command can rebuild it
+without reading the YAML again. ``analysis`` holds, per record, everything the per-test analysis found, as JSON,
+keyed by the analysis version (code version + settings); the record's ``content_hash`` keys the rest.
 """
 
 from __future__ import annotations
@@ -13,7 +15,7 @@ from sqlmodel import Field, SQLModel
 from archive.records.model import ArmCore, RecordCore
 
 #: bump when the tables change; an index of another version is rebuilt from the records
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2
 
 
 class RecordRow(RecordCore, table=True):
@@ -21,7 +23,9 @@ class RecordRow(RecordCore, table=True):
 
     id: str = Field(primary_key=True)
     path: str = Field(index=True, description="Record file, relative to the records folder.")
-    content_hash: str = Field(description="SHA-256 of the file's bytes when it was indexed.")
+    content_hash: str = Field(description="SHA-256 of the file's bytes (and of its orders file) when synced.")
+    file_stamp: str = Field(default="", description="size:mtime_ns:inode of the file (and its orders file).")
+    warnings_json: str = Field(default="[]", sa_column=Column(Text, nullable=False, default="[]"))
     orders_file: str | None = Field(default=None, description="The record's orders file, if any.")
     outcome: str | None = Field(default=None, index=True, description="decision.outcome")
     decision_arm: str | None = None
@@ -65,6 +69,23 @@ class SegmentRow(SQLModel, table=True):
     revenue: float | None = None
 
 
+class AnalysisRow(SQLModel, table=True):
+    """What the analysis of one record found (JSON of the result dataclasses), for one analysis version."""
+
+    __tablename__ = "analysis"
+
+    record_id: str = Field(primary_key=True, foreign_key="record.id", ondelete="CASCADE")
+    version: str = Field(description="Analysis code version and settings hash this was computed with.")
+    error: str | None = Field(default=None, description="Why the record cannot be analysed (None: analysed).")
+    trusted: bool | None = None
+    action: str | None = Field(default=None, description="The recommended action: ship, keep-control or iterate.")
+    result_json: str = Field(default="null", sa_column=Column(Text, nullable=False, default="null"))
+    memo_json: str = Field(default="null", sa_column=Column(Text, nullable=False, default="null"))
+    segments_json: str = Field(default="null", sa_column=Column(Text, nullable=False, default="null"))
+    effects_json: str = Field(default="[]", sa_column=Column(Text, nullable=False, default="[]"))
+    segment_effects_json: str = Field(default="{}", sa_column=Column(Text, nullable=False, default="{}"))
+
+
 class MetaRow(SQLModel, table=True):
     __tablename__ = "index_meta"
 
@@ -83,7 +104,8 @@ THEME = table_of(ThemeRow)
 TAG = table_of(TagRow)
 SEGMENT = table_of(SegmentRow)
 META = table_of(MetaRow)
-CHILD_TABLES = (ARM, THEME, TAG, SEGMENT)
+ANALYSIS = table_of(AnalysisRow)
+CHILD_TABLES = (ARM, THEME, TAG, SEGMENT, ANALYSIS)
 ALL_TABLES = (RECORD, *CHILD_TABLES, META)
 
 Index("ix_record_started", RECORD.c.started)
