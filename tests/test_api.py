@@ -168,7 +168,8 @@ def test_passwords_never_printed(archive_dir: Path) -> None:
 
 def test_markup_in_record_text_is_printed_as_text(archive_dir: Path) -> None:
     path = archive_dir / "records" / f"{RECORD}.yaml"
-    path.write_text(re.sub(r"^title: .*$", 'title: "Wrap [/x] [bold]now[/bold]"', path.read_text(), count=1, flags=re.M))
+    title = 'title: "Wrap [/x] [bold]now[/bold]"'
+    path.write_text(re.sub(r"^title: .*$", title, path.read_text(), count=1, flags=re.M))
     records = str(archive_dir / "records")
     assert run("index", "--records", records)[0] == 0
     code, out, err = run("show", RECORD, "--records", records)
