@@ -238,3 +238,23 @@ def test_killed_sync_leaves_the_previous_state(archive_dir: Path, own_store: str
     clean = archive_dir.parent / "clean.sqlite"
     Archive.open(archive_dir, db=f"sqlite:///{clean}").index()
     assert _store_dump(own_store) == _store_dump(f"sqlite:///{clean}")
+
+
+def test_stored_results_round_trip() -> None:
+    import dataclasses
+
+    from archive.analysis import Analysis, analyze, json_safe
+    from archive.analysis.jsonable import dumps, loads, plain
+    from archive.records.load import load_record
+
+    checked = 0
+    for path in sorted((ROOT / "records").glob("*.yaml"))[:30]:
+        loaded, _ = load_record(path)
+        assert loaded is not None
+        if loaded.record.status == "planned":
+            continue
+        analysis = analyze(loaded.record, loaded.orders)
+        assert plain(analysis) == json_safe(dataclasses.asdict(analysis))  # the fast converter gives the same
+        assert plain(loads(Analysis, dumps(analysis))) == plain(analysis)  # and the store gives it back whole
+        checked += 1
+    assert checked >= 20

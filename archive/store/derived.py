@@ -13,13 +13,13 @@ import hashlib
 import json
 from dataclasses import dataclass
 
-from archive.analysis import CannotAnalyze, Settings, analyze
-from archive.analysis.jsonable import dumps
-from archive.analysis.segments import analyze_segments
-from archive.pooling.effects import record_effects_from, segment_effects
-from archive.records.model import Record
-from archive.records.orders import Orders
-from archive.render.analysis import build_memo
+from typing import TYPE_CHECKING
+
+from archive.analysis.results import Settings
+
+if TYPE_CHECKING:
+    from archive.records.model import Record
+    from archive.records.orders import Orders
 
 #: bump when the analysis code changes what it computes: every record is analysed again at the next sync
 ANALYSIS_CODE_VERSION = "2"
@@ -51,6 +51,12 @@ class Derived:
 
 def derive(record: Record, orders: Orders | None, settings: Settings) -> Derived:
     """The analysis of one record as JSON (an error message instead when it cannot be analysed)."""
+    from archive.analysis import CannotAnalyze, analyze
+    from archive.analysis.jsonable import dumps
+    from archive.analysis.segments import analyze_segments
+    from archive.pooling.effects import record_effects_from, segment_effects
+    from archive.render.analysis import build_memo
+
     version = analysis_version(settings)
     try:
         analysis = analyze(record, orders, settings)
@@ -64,7 +70,7 @@ def derive(record: Record, orders: Orders | None, settings: Settings) -> Derived
         version,
         trusted=analysis.trusted,
         action=analysis.recommendation.action,
-        result_json=json.dumps(analysis.to_dict(), separators=(",", ":"), ensure_ascii=False),
+        result_json=dumps(analysis),
         memo_json=dumps(build_memo(analysis)),
         segments_json="null" if segments is None else dumps(segments),
         effects_json=dumps(effects),
