@@ -160,6 +160,7 @@ class Archive:
         return display_url(self.url)
 
     def engine(self, create: bool = False) -> Engine:
+        """The store's SQLAlchemy engine. Refuses a missing SQLite store unless ``create`` (what `index` does)."""
         from archive.store.engine import StoreUnavailable, make_engine, sqlite_file
 
         if self._engine is None:
@@ -244,6 +245,7 @@ class Archive:
         return get_record(self._ready(), record_id)
 
     def records(self) -> list[Record]:
+        """Every filed record, validated, in file-name order."""
         from archive.store.query import all_records
 
         return all_records(self._ready())
@@ -255,6 +257,7 @@ class Archive:
         return label_values(self._ready(), kind)
 
     def ids(self) -> list[str]:
+        """The ids of every filed test, sorted."""
         from archive.store.query import record_ids
 
         return record_ids(self._ready())

@@ -258,3 +258,11 @@ def test_stored_results_round_trip() -> None:
         assert plain(loads(Analysis, dumps(analysis))) == plain(analysis)  # and the store gives it back whole
         checked += 1
     assert checked >= 20
+
+
+def test_api_reference_page_is_current() -> None:
+    from archive.apiref import api_reference
+
+    committed = (ROOT / "site" / "reference" / "python-api.md").read_text(encoding="utf-8")
+    assert committed == api_reference(), "regenerate: python -c 'from archive.apiref import api_reference; ...'"
+    assert "(no description)" not in committed  # every public method says what it does
