@@ -12,7 +12,6 @@ import dataclasses
 import hashlib
 import json
 from dataclasses import dataclass
-
 from typing import TYPE_CHECKING
 
 from archive.analysis.results import Settings
