@@ -76,6 +76,8 @@ def read_settings(root: Path) -> Settings:
     known = {f.name: f for f in dataclasses.fields(Settings)}
     values: dict[str, Any] = {}
     for key, value in data.items():
+        if key == "synonyms":
+            continue  # see read_synonyms
         if key not in known or key == "rules":
             raise ValueError(f"{path}:1: {key}: unknown setting; known: {', '.join(sorted(set(known) - {'rules'}))}")
         default = getattr(Settings(), key)
@@ -87,6 +89,24 @@ def read_settings(root: Path) -> Settings:
             raise ValueError(f"{path}:1: {key}: expected {type(default).__name__}, got {value!r}")
         values[key] = value
     return Settings(**values)
+
+
+def read_synonyms(root: Path) -> dict[str, list[str]]:
+    """Extra search synonyms of an archive: ``synonyms: {word: [other, words]}`` in ``archive-settings.yaml``."""
+    path = root / SETTINGS_FILE
+    if not path.is_file():
+        return {}
+    import yaml
+
+    data = yaml.safe_load(path.read_text(encoding="utf-8")) or {}
+    found = data.get("synonyms") if isinstance(data, dict) else None
+    if found is None:
+        return {}
+    if not isinstance(found, dict) or not all(
+        isinstance(k, str) and isinstance(v, list) and all(isinstance(w, str) for w in v) for k, v in found.items()
+    ):
+        raise ValueError(f"{path}:1: synonyms: expected a mapping of word: [other, words]")
+    return found
 
 
 @dataclass
@@ -234,9 +254,9 @@ class Archive:
 
     def find(self, filters: Filters | None = None) -> list[dict[str, Any]]:
         """Tests matching every filter, as dicts (see :data:`archive.store.query.LIST_COLUMNS`)."""
-        from archive.store.query import find_tests
+        from archive.store.query import find_tests, synonym_groups
 
-        return find_tests(self._ready(), filters)
+        return find_tests(self._ready(), filters, synonym_groups(read_synonyms(self.root)))
 
     def record(self, record_id: str) -> Record:
         """The validated record of a test."""
@@ -255,6 +275,32 @@ class Archive:
         from archive.store.query import label_values
 
         return label_values(self._ready(), kind)
+
+    def labels(self, kind: str = "theme") -> list[dict[str, Any]]:
+        """The themes (or page areas, or tags) in use: per value, its tests, comparisons, how many of them the
+        analysis calls winners (the win rate, observed), and the start of its latest test."""
+        kinds = {"theme": "themes", "page_area": "page_area", "page-area": "page_area", "tag": "tags"}
+        if kind not in kinds:
+            raise ValueError("kind is theme, page-area or tag")
+        field_name = kinds[kind]
+        rows: dict[str, dict[str, Any]] = {}
+        for r in self.records():
+            values = [r.page_area] if field_name == "page_area" else list(dict.fromkeys(getattr(r, field_name)))
+            for value in values:
+                row = rows.setdefault(value, {"value": value, "tests": 0, "comparisons": 0, "winners": 0, "last": None})
+                row["tests"] += 1
+                if r.started and (row["last"] is None or r.started > row["last"]):
+                    row["last"] = r.started
+        for e in self.effects():
+            values = [e.page_area] if field_name == "page_area" else list(dict.fromkeys(getattr(e, field_name)))
+            for value in values:
+                if value in rows:
+                    rows[value]["comparisons"] += 1
+                    rows[value]["winners"] += e.verdict == "winner"
+        out = sorted(rows.values(), key=lambda row: (-row["tests"], row["value"]))
+        for row in out:
+            row["win_rate"] = row["winners"] / row["comparisons"] if row["comparisons"] else None
+        return out
 
     def ids(self) -> list[str]:
         """The ids of every filed test, sorted."""

@@ -35,6 +35,7 @@ def api_reference() -> str:
             continue
         signature = "" if isinstance(member, property) else str(inspect.signature(function))
         signature = re.sub(r"(: |-> )'([^']*)'", r"\1\2", signature)  # annotations are strings here
-        signature = re.sub(r'(: |-> )"([^"]*)"', r"\1\2", signature).replace("(self, ", "(").replace("(self)", "()").replace("(cls, ", "(")
+        signature = re.sub(r'(: |-> )"([^"]*)"', r"\1\2", signature)
+        signature = signature.replace("(self, ", "(").replace("(self)", "()").replace("(cls, ", "(")
         lines += [f"## `{name}{signature}`", "", inspect.cleandoc(function.__doc__ or "(no description)"), ""]
     return "\n".join(lines).rstrip() + "\n"

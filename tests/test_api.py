@@ -266,3 +266,39 @@ def test_api_reference_page_is_current() -> None:
     committed = (ROOT / "site" / "reference" / "python-api.md").read_text(encoding="utf-8")
     assert committed == api_reference(), "regenerate: python -c 'from archive.apiref import api_reference; ...'"
     assert "(no description)" not in committed  # every public method says what it does
+
+
+def test_search_word_forms_and_synonyms(records_dir: Path, engine: Engine) -> None:
+    from archive.store.query import Filters, find_tests, synonym_groups
+    from archive.store.sync import index_archive
+
+    index_archive(records_dir, engine)
+    both = ["free-delivery-bar", "free-delivery-bar-2"]
+    # the records say "free delivery threshold" and "abandon baskets"
+    assert [t["id"] for t in find_tests(engine, Filters(text="free shipping"))] == both  # synonym
+    assert [t["id"] for t in find_tests(engine, Filters(text="basket abandoning"))] == both  # word forms
+    assert find_tests(engine, Filters(text="parcel"), synonym_groups()) == []
+    extended = synonym_groups({"parcel": ["delivery"]})
+    assert [t["id"] for t in find_tests(engine, Filters(text="parcel"), extended)] == both
+
+
+def test_themes_in_use_and_mistakes_named(demo_db: str) -> None:
+    records = str(ROOT / "records")
+    code, out, _ = run("themes", "--records", records, "--json")
+    rows = {r["value"]: r for r in json.loads(out)}
+    assert code == 0 and rows["shipping-cost"]["tests"] == 10 and 0 <= rows["shipping-cost"]["win_rate"] <= 1
+    code, out, _ = run("themes", "--kind", "page-area", "--records", records, "--csv")
+    assert code == 0 and out.splitlines()[0] == "value,tests,comparisons,winners,win_rate,last"
+    for args, message in (
+        (["list", "--theme", "shiping-cost"], "no theme 'shiping-cost'; did you mean 'shipping-cost'?"),
+        (["list", "--status", "done"], "no status 'done'"),
+        (["list", "--outcome", "winner"], "no outcome 'winner'"),
+        (["list", "--page-area", "baskets"], "did you mean 'basket'?"),
+        (["show", "2024-11-gift-wrap-checkbx"], "did you mean '2024-11-gift-wrap-checkbox'?"),
+        (["analyze", "2024-11-gift-wrap-checkbx"], "did you mean '2024-11-gift-wrap-checkbox'?"),
+        (["prior", "--theme", "shiping-cost"], "did you mean 'shipping-cost'?"),
+    ):
+        code, _, err = run(*args, "--records", records)
+        assert code == 1 and message in err, (args, err)
+    code, _, err = run("plan", "--minimum-lift", "5", "--baseline", "0.03")
+    assert code == 2 and "write 0.05 for +5%" in err

@@ -235,3 +235,32 @@ def _print_record(r: Record) -> None:
             out.print(f"  - {item}", markup=False)
     for link in r.links:
         out.print(f"  {link.label}: {link.url}", markup=False)
+
+
+def labels(
+    kind: Annotated[str, typer.Option("--kind", help="theme, page-area or tag.")] = "theme",
+    fmt: FormatOption = Format.table,
+    as_json: JsonFlag = False,
+    as_csv: CsvFlag = False,
+    records: RecordsOption = None,
+    db: DbOption = None,
+    no_sync: NoSyncOption = False,
+) -> None:
+    """The themes (or page areas, tags) in use, with their tests, win rate and latest test: reuse them."""
+    fmt = chosen_format(fmt, as_json, as_csv)
+    with user_errors():
+        archive = open_archive(records, db, no_sync)
+        ready(archive)
+        rows = archive.labels(kind)
+    shown = [
+        {**row, "win_rate": "" if row["win_rate"] is None else f"{row['win_rate']:.0%}"} if fmt is Format.table else row
+        for row in rows
+    ]
+    emit_rows(
+        shown, ["value", "tests", "comparisons", "winners", "win_rate", "last"], chosen_format(fmt, as_json, as_csv)
+    )
+    if fmt is Format.table:
+        err.print(
+            f"{len(rows)} value(s). Win rate: comparisons the analysis calls winners, of all compared (observed, "
+            "not shrunk; `archive pool` gives intervals)."
+        )

@@ -20,6 +20,7 @@ app.command("index")(catalog.index)
 app.command("list")(catalog.list_tests)
 app.command("search")(catalog.search)
 app.command("show")(catalog.show)
+app.command("themes")(catalog.labels)
 app.command("analyze")(analyze.analyze)
 app.command("pool")(pool.pool)
 app.command("prior")(planning.prior)
@@ -28,8 +29,23 @@ app.command("calibrate")(planning.calibrate)
 app.add_typer(site.app, name="site")
 
 
+def command() -> typer.core.TyperGroup:
+    """The click command behind ``app``, with on/off flags shown without a value placeholder in help."""
+    group = typer.main.get_command(app)
+    _quiet_flags(group)
+    return group  # type: ignore[return-value]
+
+
+def _quiet_flags(cmd: object) -> None:
+    for param in getattr(cmd, "params", []):
+        if getattr(param, "is_flag", False):
+            param.metavar = ""
+    for sub in getattr(cmd, "commands", {}).values():
+        _quiet_flags(sub)
+
+
 def main() -> None:
-    app()
+    command()(prog_name="archive")
 
 
 if __name__ == "__main__":

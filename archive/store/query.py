@@ -44,8 +44,11 @@ class Filters:
     text: str | None = None
 
 
-def find_tests(engine: Engine, filters: Filters | None = None) -> list[dict[str, Any]]:
-    """Tests matching every given filter, as plain dicts with the keys of ``LIST_COLUMNS``."""
+def find_tests(
+    engine: Engine, filters: Filters | None = None, synonyms: dict[str, set[str]] | None = None
+) -> list[dict[str, Any]]:
+    """Tests matching every given filter, as plain dicts with the keys of ``LIST_COLUMNS``. Text search matches
+    word forms (stemming) and the ``synonyms`` groups (default: :data:`SYNONYMS`)."""
     f = filters or Filters()
     R = RECORD.c
     conditions: list[ColumnElement[bool]] = []
@@ -62,7 +65,7 @@ def find_tests(engine: Engine, filters: Filters | None = None) -> list[dict[str,
     if f.until:
         conditions.append(R.started <= f.until)
     if f.text:
-        conditions.append(R.id.in_(_text_matches(engine, f.text)))
+        conditions.append(R.id.in_(_text_matches(engine, f.text, synonyms)))
     query = select(
         R.id, R.title, R.status, R.page_area, R.themes_text, R.started, R.ended, R.owner, R.outcome, R.arm_count
     ).where(*conditions)
@@ -86,21 +89,57 @@ def find_tests(engine: Engine, filters: Filters | None = None) -> list[dict[str,
     ]
 
 
-def _text_matches(engine: Engine, words: str) -> Any:
+#: words a shop team uses for the same thing (common practice; an archive adds its own under ``synonyms:`` in
+#: ``archive-settings.yaml``). Search for one finds the others.
+SYNONYMS: tuple[tuple[str, ...], ...] = (
+    ("shipping", "delivery", "postage"),
+    ("basket", "cart", "bag"),
+    ("voucher", "coupon"),
+    ("instalments", "installments"),
+    ("colour", "color"),
+    ("review", "rating"),
+)
+
+
+def synonym_groups(extra: dict[str, list[str]] | None = None) -> dict[str, set[str]]:
+    """Each word to the set of words it stands for (itself included), merging overlapping groups."""
+    groups: list[set[str]] = [set(g) for g in SYNONYMS]
+    for word, others in (extra or {}).items():
+        groups.append({word.lower(), *(o.lower() for o in others)})
+    merged: dict[str, set[str]] = {}
+    for group in groups:
+        combined = set(group)
+        for word in group:
+            combined |= merged.get(word, set())
+        for word in combined:
+            merged[word] = combined
+    return merged
+
+
+def _text_matches(engine: Engine, words: str, synonyms: dict[str, set[str]] | None = None) -> Any:
     terms = re.findall(r"\w+", words.lower())
     if not terms:
         raise ValueError("the search text has no words")
+    groups = synonyms if synonyms is not None else synonym_groups()
+    alternatives = [sorted(groups.get(t) or groups.get(t.removesuffix("s")) or {t}) for t in terms]
     if engine.dialect.name == "sqlite":
-        # every word must occur (in any searched column); quoting keeps FTS5 operators out of user text
-        match = " ".join(f'"{t}"' for t in terms)
+        # every word (or one of its synonyms) must occur; quoting keeps FTS5 operators out of user text
+        match = " AND ".join("(" + " OR ".join(f'"{w}"' for w in options) + ")" for options in alternatives)
         return text("SELECT record_id FROM record_search WHERE record_search MATCH :q").bindparams(q=match)
     if engine.dialect.name == "postgresql":
         document = func.to_tsvector("english", literal_column(search_document_sql()))
-        query = func.plainto_tsquery("english", " ".join(terms))
+        # \w+ words only, so the tsquery operators below are the only syntax in it
+        query = func.to_tsquery("english", " & ".join("(" + " | ".join(options) + ")" for options in alternatives))
         return select(RECORD.c.id).where(document.bool_op("@@")(query))
     like = [
-        or_(*(col.ilike(f"%{t}%") for col in (RECORD.c.title, RECORD.c.hypothesis, RECORD.c.learnings_text)))
-        for t in terms
+        or_(
+            *(
+                col.ilike(f"%{w}%")
+                for w in options
+                for col in (RECORD.c.title, RECORD.c.hypothesis, RECORD.c.learnings_text)
+            )
+        )
+        for options in alternatives
     ]
     return select(RECORD.c.id).where(and_(*like))
 
