@@ -39,3 +39,7 @@ def api_reference() -> str:
         signature = signature.replace("(self, ", "(").replace("(self)", "()").replace("(cls, ", "(")
         lines += [f"## `{name}{signature}`", "", inspect.cleandoc(function.__doc__ or "(no description)"), ""]
     return "\n".join(lines).rstrip() + "\n"
+
+
+if __name__ == "__main__":  # python -m archive.apiref > site/reference/python-api.md
+    print(api_reference(), end="")

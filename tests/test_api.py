@@ -264,7 +264,7 @@ def test_api_reference_page_is_current() -> None:
     from archive.apiref import api_reference
 
     committed = (ROOT / "site" / "reference" / "python-api.md").read_text(encoding="utf-8")
-    assert committed == api_reference(), "regenerate: python -c 'from archive.apiref import api_reference; ...'"
+    assert committed == api_reference(), "regenerate: python -m archive.apiref > site/reference/python-api.md"
     assert "(no description)" not in committed  # every public method says what it does
 
 

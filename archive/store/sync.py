@@ -208,6 +208,13 @@ def sync(
         if on_wait is not None:
             on_wait()
 
+    if not create and not full:
+        with engine.connect() as conn:  # most syncs find nothing to do: no write lock for them
+            known = _known_records(conn)
+        plan = _scan(records_dir, known, version, full)
+        if not plan.to_process and not plan.restamp and len(plan.files) == len(known):
+            report.unchanged = len(plan.unchanged)
+            return report
     with write_transaction(engine, waiting) as conn:
         if create:
             report.rebuilt = not prepare(conn)
