@@ -197,13 +197,3 @@ def _drop(conn: Connection) -> None:
     # tables of an older schema may differ from ours: drop them by name, children first
     for table in reversed(_tables()):
         conn.execute(text(f"DROP TABLE IF EXISTS {table.name}{cascade}"))
-
-
-def meta_value(conn: Connection, key: str) -> str | None:
-    row = conn.execute(text("SELECT value FROM index_meta WHERE key = :k"), {"k": key}).first()
-    return None if row is None else str(row[0])
-
-
-def set_meta(conn: Connection, key: str, value: str) -> None:
-    conn.execute(text("DELETE FROM index_meta WHERE key = :k"), {"k": key})
-    conn.execute(META.insert(), [{"key": key, "value": value}])

@@ -153,11 +153,6 @@ def get_record(engine: Engine, record_id: str) -> Record:
     return record_from_json(body)
 
 
-def index_size(engine: Engine) -> int:
-    with engine.connect() as conn:
-        return int(conn.execute(select(func.count()).select_from(RECORD)).scalar_one())
-
-
 # --- DataFrames -----------------------------------------------------------------------------------------
 
 
