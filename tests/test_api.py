@@ -302,3 +302,14 @@ def test_themes_in_use_and_mistakes_named(demo_db: str) -> None:
         assert code == 1 and message in err, (args, err)
     code, _, err = run("plan", "--minimum-lift", "5", "--baseline", "0.03")
     assert code == 2 and "write 0.05 for +5%" in err
+
+
+def test_nothing_deserialises_code() -> None:
+    # the store and the site keep JSON only: no pickle, marshal, shelve or unsafe YAML loader anywhere in the package
+    pattern = re.compile(r"\b(import pickle|import marshal|import shelve|pickle\.loads|yaml\.load\(|yaml\.unsafe_load)")
+    offenders = [
+        str(path.relative_to(ROOT))
+        for path in sorted((ROOT / "archive").rglob("*.py"))
+        if pattern.search(path.read_text(encoding="utf-8"))
+    ]
+    assert offenders == []
