@@ -31,6 +31,7 @@ NAV = """nav:
       - Record fields: reference/record-fields.md
       - Analysis JSON: reference/analysis-json.md
       - Python API: reference/python-api.md
+      - Glossary: reference/glossary.md
 """
 
 
@@ -110,7 +111,7 @@ def generate(entries: list[TestEntry], progress: Callable[[str], None] | None = 
             add(f"{kind}/{name}-forest.svg", svg.forest_chart(pages.group_chart_rows(group, data), group.key))
     add("learnings.md", pages.learnings_page(data))
     add("tags.md", pages.tags_page(data))
-    for name in ("record-fields.md", "analysis-json.md", "python-api.md"):
+    for name in ("record-fields.md", "analysis-json.md", "python-api.md", "glossary.md"):
         add(f"reference/{name}", (REFERENCE / "reference" / name).read_bytes())
     return files
 
