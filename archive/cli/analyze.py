@@ -60,7 +60,6 @@ def analyze(
     from archive.render.analysis import build_memo
     from archive.render.markdown import render_markdown
     from archive.render.terminal import render_terminal
-
     with user_errors():
         path = _record_path(record_id, file, records)
         loaded, problems = load_record(path)
