@@ -246,8 +246,9 @@ def test_statsmodels_second_opinion() -> None:
     from statsmodels.stats.meta_analysis import combine_effects
 
     y, v, index = _random_groups(seed=99)
-    dl = pool_groups(y, v, index, 200, "DL", hksj=True)
-    pm = pool_groups(y, v, index, 200, "PM", hksj=True)
+    # statsmodels' sd_eff_w_re_hksj is the HKSJ SE without the max(1, q) floor
+    dl = pool_groups(y, v, index, 200, "DL", hksj=True, hksj_floor=False)
+    pm = pool_groups(y, v, index, 200, "PM", hksj=True, hksj_floor=False)
     compared = negative_seen = 0
     for j in range(200):
         mask = index == j
@@ -326,7 +327,11 @@ def test_identical_effects(method: str) -> None:
     assert pooled.tau2[0] == 0.0
     assert pooled.tau2_low[0] == 0.0 and pooled.tau2_high[0] == 0.0
     assert pooled.mean[0] == pytest.approx(0.12, rel=1e-14)
-    assert pooled.se[0] == pytest.approx(0.0, abs=1e-12)  # HKSJ: no spread around the mean
+    # HKSJ without its floor: no spread around the mean gives a zero-width interval; the Knapp-Hartung floor
+    # max(1, q) keeps the plain inverse-variance SE sqrt(1 / sum(1/v)) (tau2 = 0), computed here independently
+    assert pooled.se[0] == pytest.approx(math.sqrt(1 / np.sum(1 / v)), rel=1e-12)
+    bare = pool_groups(y, v, np.zeros(6, dtype=int), 1, method, hksj_floor=False)  # type: ignore[arg-type]
+    assert bare.se[0] == pytest.approx(0.0, abs=1e-12)
     assert pooled.i_squared[0] == 0.0 and pooled.q[0] == pytest.approx(0.0, abs=1e-25)
     _assert_matches_scalar(pooled, 0, random_effects(y, v, method))  # type: ignore[arg-type]
 
@@ -389,3 +394,15 @@ def test_bad_arguments() -> None:
         pool_groups(*good, 2, confidence=1.0)
     with pytest.raises(ValueError):
         pool_groups([[0.1, 0.2]], [[0.01, 0.02]], [[0, 1]], 2)
+
+
+def test_two_agreeing_tests_do_not_pool_to_a_zero_width_interval() -> None:
+    # two non-significant +5% tests (log RR 0.0488, SE 0.04 each): without the floor HKSJ gives a zero-width
+    # interval and p 0; with max(1, q) the interval is mean +/- t(0.975, 1 df) * sqrt(1 / sum(1/v)), where
+    # t(0.975, 1) = 12.7062047361747 (scipy.stats.t.ppf(0.975, 1); the Cauchy quantile tan(0.475 pi))
+    y, v = np.full(2, math.log(1.05)), np.full(2, 0.04**2)
+    pooled = pool_groups(y, v, np.zeros(2, dtype=int), 1, "REML")
+    half = 12.7062047361747 * 0.04 / math.sqrt(2)
+    assert pooled.low[0] == pytest.approx(math.log(1.05) - half, rel=1e-9)
+    assert pooled.high[0] == pytest.approx(math.log(1.05) + half, rel=1e-9)
+    assert pooled.p_value[0] > 0.05 and "max(1, q)" in pooled.interval_kind

@@ -272,3 +272,47 @@ def test_quantile_of_t_used_for_prediction() -> None:
     plain = random_effects(y, np.full(6, 0.0004), "REML", hksj=False)
     half = stats.t.ppf(0.975, 4) * math.sqrt(plain.tau2 + plain.se**2)
     assert math.log1p(g.prediction_high) == pytest.approx(plain.mean + half, rel=1e-8)
+
+
+def test_false_positive_risk_uses_the_rule_false_win_rate() -> None:
+    # two-arm tests: the ship rule wins on the positive side of a two-sided test at 0.05, i.e. at
+    # P(Z > 1.959964) = 0.025 (scipy.stats.norm.sf(1.959964)); the rate is measured on 200,000 seeded draws
+    two_arm = [_effect(0.02, 0.0004, record_id=f"r{i}", verdict="winner" if i < 3 else "flat") for i in range(20)]
+    prog = pool(two_arm, "theme", permutations=0).programme
+    assert prog.false_win_rate == pytest.approx(stats.norm.sf(1.959964), abs=0.0015)
+    expected = false_positive_risk(3 / 20, 0.05, 0.8)  # Kohavi & Chen's alpha/2 form: the same f here
+    assert expected is not None and prog.false_positive_risk == pytest.approx(expected[1], abs=0.01)
+    # four-arm tests: Holm's first step is Bonferroni, alpha / (2 x 3) per comparison, and its later steps add
+    # little (Holm 1979); the programme uses that smaller rate, not alpha/2
+    four_arm = [_effect(0.02, 0.0004, record_id=f"r{i // 3}", arm=f"t{i % 3}", control_share=3) for i in range(21)]
+    f = pool(four_arm, "theme", permutations=0).programme.false_win_rate
+    assert f is not None and 0.05 / 6 - 0.0015 <= f <= 0.05 / 6 + 0.003
+
+
+def test_double_zero_comparisons_are_left_out_and_listed() -> None:
+    r = _record([("control", 5000, 0), ("b", 5000, 0)], id="nobody", plan={"visitors_per_arm": 5000})
+    (e,) = record_effects(r)
+    assert e.double_zero
+    others = [_effect(0.02, 0.0004, record_id=f"r{i}", themes=["shipping-cost"]) for i in range(5)]
+    result = pool([*others, e], "theme", permutations=0)
+    assert result.double_zero == ["nobody/b"] and result.groups[0].comparisons == 5
+
+
+def test_between_group_test_counts_shared_tests_once() -> None:
+    from statsmodels.stats.meta_analysis import combine_effects
+
+    rng = np.random.default_rng(5)
+    y, v = rng.normal(0.02, 0.05, 9), rng.uniform(0.0005, 0.002, 9)
+    themes = [["a"]] * 4 + [["b"]] * 4 + [["a", "b"]]  # the last test carries both themes
+    effects = [_effect(float(y[i]), float(v[i]), record_id=f"r{i}", themes=themes[i]) for i in range(9)]
+    result = pool(effects, "theme", method="DL", permutations=0)
+    assert {g.key: g.comparisons for g in result.groups} == {"a": 5, "b": 5}  # each group shows its own members
+    # between-group Q with the shared test in its first theme only: DL random-effects means and SEs of the two
+    # disjoint groups from statsmodels combine_effects(method_re="dl"), then Cochran's Q of the two means
+    first = [0, 1, 2, 3, 8], [4, 5, 6, 7]
+    fits = [combine_effects(y[list(ix)], v[list(ix)], method_re="dl") for ix in first]
+    means = np.array([f.mean_effect_re for f in fits])
+    w = 1 / np.array([f.sd_eff_w_re for f in fits]) ** 2
+    q = float(np.sum(w * (means - np.sum(w * means) / np.sum(w)) ** 2))
+    assert result.between_groups is not None and result.between_groups.df == 1
+    assert result.between_groups.q == pytest.approx(q, rel=1e-8)

@@ -55,7 +55,8 @@ def plan_memo(p: TestPlan) -> Memo:
     if p.false_positive_risk is not None and p.theme_success_rate is not None:
         bullets.append(
             f"the theme's implied true success rate {pct(p.theme_success_rate)} makes a winner a false positive "
-            f"with probability {pct(p.false_positive_risk)} (Kohavi, Deng & Vermeer 2022)"
+            f"with probability {pct(p.false_positive_risk)} (Kohavi, Deng & Vermeer 2022, with the ship rule's "
+            f"false-win rate {pct(p.false_win_rate, 2)} per comparison)"
         )
     bullets += [f"Warning: {w}." for w in p.warnings]
     sections = [Section("The odds", bullets=bullets)] if bullets else []

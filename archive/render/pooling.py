@@ -15,7 +15,8 @@ def build_pool_memo(p: PoolResult) -> Memo:
         f"Observed win rate {pct(prog.win_rate.rate)} {interval_plain_rate(prog.win_rate)}"
         + (
             f"; implied true success rate {pct(prog.true_success_rate)} and false positive risk of a winner "
-            f"{pct(prog.false_positive_risk)} (Kohavi & Chen 2024, alpha {prog.alpha:g}, assumed power "
+            f"{pct(prog.false_positive_risk)} (Kohavi & Chen 2024, with the ship rule's false-win rate "
+            f"{pct(prog.false_win_rate, 2)} per comparison at alpha {prog.alpha:g}, assumed power "
             f"{prog.assumed_power:.0%})."
             if prog.false_positive_risk is not None
             else "."
@@ -73,6 +74,8 @@ def build_pool_memo(p: PoolResult) -> Memo:
             checks.append(f"Warning: {e.warning}.")
     if p.excluded:
         checks.append(f"Left out after a failed trust check: {', '.join(p.excluded)}.")
+    if p.double_zero:
+        checks.append(f"Left out, no conversions in either arm: {', '.join(p.double_zero)}.")
     if p.split_controls:
         checks.append(f"Shared controls split evenly: {', '.join(p.split_controls)}.")
     sections = [ranked, Section("Across the archive", bullets=checks)]

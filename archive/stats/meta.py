@@ -2,8 +2,10 @@
 
 * Fixed effect (common effect): weights 1/v_i; Cochran's Q, its chi-square p-value, I^2 (Higgins & Thompson 2002).
 * Random effects: tau^2 by DerSimonian-Laird (1986, truncated at 0), Paule-Mandel, or REML; the pooled mean with
-  weights 1/(v_i + tau^2); the Hartung-Knapp-Sidik-Jonkman interval (t with k-1 df, q not truncated at 1, as
-  metafor's test="knha"); the Q-profile interval of tau^2 (Viechtbauer 2007); the prediction interval of
+  weights 1/(v_i + tau^2); the Hartung-Knapp-Sidik-Jonkman interval (t with k-1 df) with the Knapp-Hartung
+  modification q* = max(1, q) by default (Knapp & Hartung 2003; Roever, Knapp & Friede 2015), so that the interval
+  is never narrower than the plain random-effects one; ``hksj_floor=False`` gives metafor's test="knha"; the
+  Q-profile interval of tau^2 (Viechtbauer 2007); the prediction interval of
   Higgins, Thompson & Spiegelhalter (2009): mu +/- t_{k-2} sqrt(tau^2 + SE(mu)^2).
 """
 
@@ -18,6 +20,7 @@ import numpy as np
 from scipy import optimize, stats
 
 TauMethod = Literal["DL", "PM", "REML"]
+HKSJ_FLOOR_LABEL = "HKSJ with the Knapp-Hartung max(1, q) floor (t, k-1 df)"
 
 
 ArrayLike = Sequence[float] | np.ndarray
@@ -180,6 +183,7 @@ def random_effects(
     method: TauMethod = "REML",
     hksj: bool = True,
     confidence: float = 0.95,
+    hksj_floor: bool = True,
 ) -> RandomEffects:
     y, v = _arrays(effects, variances)
     if method not in TAU2:
@@ -192,10 +196,12 @@ def random_effects(
     tail = 0.5 + confidence / 2
     if hksj and k >= 2:
         q_hk = float(np.sum(w * (y - mean) ** 2) / (k - 1))
+        if hksj_floor:
+            q_hk = max(1.0, q_hk)
         se_used = se * math.sqrt(q_hk)
         crit = float(stats.t.ppf(tail, k - 1))
         p = float(2 * stats.t.sf(abs(mean / se_used), k - 1)) if se_used > 0 else 0.0
-        kind = "HKSJ (t, k-1 df)"
+        kind = HKSJ_FLOOR_LABEL if hksj_floor else "HKSJ (t, k-1 df)"
     else:
         se_used, crit, kind = se, float(stats.norm.ppf(tail)), "normal"
         p = float(2 * stats.norm.sf(abs(mean / se)))

@@ -17,7 +17,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
-from archive.stats.meta import ArrayLike, TauMethod, reml_grid
+from archive.stats.meta import HKSJ_FLOOR_LABEL, ArrayLike, TauMethod, reml_grid
 
 _MAX_ITERATIONS = 300
 _RELATIVE_TOLERANCE = 1e-13
@@ -257,22 +257,23 @@ def pool_groups(
     method: TauMethod = "REML",
     hksj: bool = True,
     confidence: float = 0.95,
+    hksj_floor: bool = True,
 ) -> GroupPooling:
     """Random-effects pooling of every group: ``effects[i]`` (variance ``variances[i]``) belongs to group
     ``group_index[i]`` in 0 .. n_groups - 1. Group by group the result equals
-    ``random_effects(effects[group_index == j], variances[group_index == j], method, hksj, confidence)``, with None
-    there as NaN here."""
+    ``random_effects(effects[group_index == j], variances[group_index == j], method, hksj, confidence, hksj_floor)``,
+    with None there as NaN here."""
     y, v, g, n = _validate(effects, variances, group_index, n_groups)
     if method not in ("DL", "PM", "REML"):
         raise ValueError(f"unknown tau^2 method {method!r}; use DL, PM or REML")
     if not 0 < confidence < 1:
         raise ValueError("confidence must lie strictly between 0 and 1")
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        return _pool(y, v, g, n, method, hksj, confidence)
+        return _pool(y, v, g, n, method, hksj, confidence, hksj_floor)
 
 
 def _pool(
-    y: np.ndarray, v: np.ndarray, g: np.ndarray, n: int, method: str, hksj: bool, confidence: float
+    y: np.ndarray, v: np.ndarray, g: np.ndarray, n: int, method: str, hksj: bool, confidence: float, floor: bool
 ) -> GroupPooling:
     if len(g) > 1 and not bool(np.all(g[1:] >= g[:-1])):
         # a stable sort of small integers is a radix sort in numpy: several times faster than on int64
@@ -312,7 +313,7 @@ def _pool(
         tau2 = _tau2_reml(model, multi, v_min, v_max, var_y, atol)
     tau2 = np.where(some, tau2, 0.0)
 
-    # random-effects mean; HKSJ: se * sqrt(q_hk), q_hk = sum w (y - mu)^2 / (k - 1) not truncated at 1, t with k-1 df
+    # random-effects mean; HKSJ: se * sqrt(q_hk), q_hk = sum w (y - mu)^2 / (k - 1) (floored at 1 by default), t, k-1 df
     w = 1 / (v + s.spread(tau2))
     sw = s.sum(w)
     mean = s.sum(w * y) / sw
@@ -321,6 +322,8 @@ def _pool(
     use_t = multi if hksj else np.zeros(n, dtype=bool)
     use_z = some & ~use_t
     q_hk = s.sum(w * (y - s.spread(mean)) ** 2) / df
+    if floor:
+        q_hk = np.maximum(1.0, q_hk)  # Knapp-Hartung modification: never narrower than the plain interval
     se = np.where(use_t, se_plain * np.sqrt(q_hk), se_plain)
     crit = nan.copy()
     crit[use_t] = _by_distinct(lambda d: stats.t.ppf(tail, d), df[use_t])
@@ -366,5 +369,11 @@ def _pool(
         fixed_mean=group_values(fixed_mean),
         fixed_se=group_values(fixed_se),
         method=method,
-        interval_kind="HKSJ (t, k-1 df); normal where k = 1" if hksj else "normal",
+        interval_kind=_interval_kind(hksj, floor),
     )
+
+
+def _interval_kind(hksj: bool, floor: bool) -> str:
+    if not hksj:
+        return "normal"
+    return (HKSJ_FLOOR_LABEL if floor else "HKSJ (t, k-1 df)") + "; normal where k = 1"
