@@ -262,16 +262,20 @@ def test_cli_pool_on_demo_archive(tmp_path: Path) -> None:
     assert result.exit_code == 2 and "unknown grouping" in result.stderr
 
 
-def test_quantile_of_t_used_for_prediction() -> None:
-    # Higgins et al. (2009): the prediction interval uses t with k - 2 degrees of freedom
-    effects = [_effect(v, 0.0004, record_id=f"r{i}") for i, v in enumerate([0.0, 0.05, -0.03, 0.08, 0.01, 0.02])]
-    (g,) = pool(effects, "theme", permutations=0).groups
-    from archive.stats.meta import random_effects
-
+def test_prediction_interval_carries_tau2_uncertainty() -> None:
+    # the pooled group's interval is the confidence-distribution interval: the vectorised code (Newton per slice,
+    # bisection for the quantiles) against the scalar one (bisection per slice, Brent for the quantiles)
     y = np.array([0.0, 0.05, -0.03, 0.08, 0.01, 0.02])
+    effects = [_effect(float(x), 0.0004, record_id=f"r{i}") for i, x in enumerate(y)]
+    (g,) = pool(effects, "theme", permutations=0).groups
+    from archive.stats.meta import cd_prediction_interval, random_effects
+
+    scalar = cd_prediction_interval(y, np.full(6, 0.0004))  # the scalar implementation (root finding per slice)
+    assert scalar is not None and g.prediction_low is not None and g.prediction_high is not None
+    assert math.log1p(g.prediction_low) == pytest.approx(scalar[0], rel=1e-8)
+    assert math.log1p(g.prediction_high) == pytest.approx(scalar[1], rel=1e-8)
     plain = random_effects(y, np.full(6, 0.0004), "REML", hksj=False)
-    half = stats.t.ppf(0.975, 4) * math.sqrt(plain.tau2 + plain.se**2)
-    assert math.log1p(g.prediction_high) == pytest.approx(plain.mean + half, rel=1e-8)
+    assert plain.prediction_low == pytest.approx(scalar[0], rel=1e-12)
 
 
 def test_false_positive_risk_uses_the_rule_false_win_rate() -> None:

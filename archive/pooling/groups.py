@@ -226,7 +226,7 @@ def pool(
     v = np.array([e.variance for name in names for e in members[name]])
     index = np.repeat(np.arange(len(names)), [len(members[name]) for name in names])
     re = pool_groups(y, v, index, len(names), method, hksj=hksj)  # type: ignore[arg-type]
-    dl = pool_groups(y, v, index, len(names), "DL", hksj=False)
+    dl = pool_groups(y, v, index, len(names), "DL", hksj=False, prediction=False)
     groups = [_group(name, members[name], re, dl, i) for i, name in enumerate(names)]
     primary = _primary_groups(used, key_of, names)
     _shrink_rates(groups, used, primary)
@@ -236,8 +236,9 @@ def pool(
         method=f"{method} tau^2"
         + (f", {HKSJ_FLOOR_LABEL} (Hartung-Knapp-Sidik-Jonkman)" if hksj else ", normal interval"),
         interval="95% confidence interval of the mean relative lift of the group's tests",
-        prediction_convention="95% prediction interval for the true lift of a new test of the kind: Higgins, "
-        "Thompson & Spiegelhalter (2009), mean +/- t(k-2) sqrt(tau^2 + SE^2)",
+        prediction_convention="95% prediction interval for the true lift of a new test of the kind, carrying the "
+        "uncertainty of tau^2 through its Q-profile confidence distribution (after Nagashima, Noma & Furukawa "
+        "2019); shown from 3 comparisons: with fewer the spread between tests cannot be estimated",
         ranking="ranked by the lower end of the 95% interval of the pooled lift, never by the point estimate alone",
         groups=groups,
         excluded=excluded,
@@ -430,7 +431,7 @@ def _between(used: list[Effect], primary: list[int], names: list[str], method: s
     y = np.array([used[i].log_rr for i in keep])
     v = np.array([used[i].variance for i in keep])
     index = np.array([primary[i] for i in keep])
-    once = pool_groups(y, v, index, len(names), method, hksj=False)  # type: ignore[arg-type]
+    once = pool_groups(y, v, index, len(names), method, hksj=False, prediction=False)  # type: ignore[arg-type]
     usable = np.flatnonzero(once.k >= 2)
     if len(usable) < 2:
         return None
