@@ -320,3 +320,45 @@ def test_between_group_test_counts_shared_tests_once() -> None:
     q = float(np.sum(w * (means - np.sum(w * means) / np.sum(w)) ** 2))
     assert result.between_groups is not None and result.between_groups.df == 1
     assert result.between_groups.q == pytest.approx(q, rel=1e-8)
+
+
+def test_hierarchical_win_rates_against_direct_integration() -> None:
+    from scipy import integrate, special
+
+    from archive.stats.beta_binomial import hierarchical_rates
+
+    # BDA3 5.3: p(a/(a+b), (a+b)^(-1/2)) flat, i.e. p(a, b) ~ (a+b)^(-5/2). Independent check: the posterior mean
+    # of group 1's rate by scipy.integrate.dblquad over u = a/(a+b) in (0, 1), t = (a+b)^(-1/2) in (0, 3.2)
+    y = np.array([2, 1, 1, 2, 2, 0, 3, 0, 0, 1])
+    n = np.array([10, 13, 6, 9, 10, 7, 9, 8, 6, 6])
+
+    def likelihood(u: float, t: float) -> float:
+        s = t**-2
+        a, b = u * s, (1 - u) * s
+        return float(np.exp(np.sum(special.betaln(a + y, b + n - y) - special.betaln(a, b))))
+
+    opts = {"epsabs": 1e-13, "epsrel": 1e-9}
+    z = integrate.dblquad(lambda t, u: likelihood(u, t), 0, 1, 0, 3.2, **opts)[0]
+    m = integrate.dblquad(lambda t, u: likelihood(u, t) * (u * t**-2 + y[0]) / (t**-2 + n[0]), 0, 1, 0, 3.2, **opts)
+    fit = hierarchical_rates(list(y), list(n))
+    assert fit is not None
+    assert fit.mean[0] == pytest.approx(m[0] / z, abs=5e-4)
+    assert fit.low[0] < fit.mean[0] < fit.high[0]
+    assert fit.no_difference  # ten small groups with similar counts: the data cannot tell them apart
+    # clearly different groups: no longer "no difference", and the rates stay apart
+    apart = hierarchical_rates([2, 40, 3, 38], [100, 100, 100, 100])
+    assert apart is not None and not apart.no_difference and apart.mean[1] - apart.mean[0] > 0.2
+
+
+def test_demo_win_rates_do_not_collapse_to_one_value() -> None:
+    # the maximum-likelihood beta-binomial fit ran off to a + b -> infinity on the demo (every theme "16.7%");
+    # the hierarchical posterior keeps the groups' own counts visible
+    effects = [
+        _effect(0.02, 0.0004, record_id=f"r{i}", themes=[t], verdict="winner" if i % k == 0 else "flat")
+        for t, k in (("a", 2), ("b", 9))
+        for i in range(18)
+    ]
+    result = pool(effects, "theme", permutations=0)
+    shrunk = {g.key: g.wins.shrunk for g in result.groups}
+    assert shrunk["a"] is not None and shrunk["b"] is not None and shrunk["a"] > shrunk["b"] + 0.1
+    assert "hierarchical beta-binomial" in result.win_rates

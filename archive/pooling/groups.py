@@ -2,10 +2,12 @@
 
 ``pool(effects, by)`` groups the comparisons (see :mod:`archive.pooling.effects`) and, per group, runs a random-effects
 meta-analysis of the log risk ratios: REML tau^2 with the Hartung-Knapp-Sidik-Jonkman interval by default
-(Cochrane's current guidance), DerSimonian-Laird shown as the classic comparison; the prediction interval for
-the next test of that kind follows Higgins, Thompson & Spiegelhalter (2009): t with k-2 df. Groups with fewer
-than ``MIN_GROUP`` comparisons are kept and flagged. Win rates get Jeffreys intervals and empirical-Bayes
-(beta-binomial) shrinkage across groups; the programme's false positive risk follows Kohavi & Chen (2024).
+(Cochrane's current guidance; Knapp-Hartung floor max(1, q)), DerSimonian-Laird shown as the classic comparison;
+the prediction interval for the next test of that kind carries tau^2's uncertainty through its confidence
+distribution (:func:`archive.stats.meta.cd_prediction_interval`). Groups with fewer than ``MIN_GROUP`` comparisons
+are kept and flagged. Win rates get Jeffreys intervals and the posterior of a hierarchical beta-binomial model
+across groups (:mod:`archive.stats.beta_binomial`); the programme's false positive risk follows Kohavi & Chen
+(2024) with the false-win rate of the ship rule actually used.
 """
 
 from __future__ import annotations
@@ -23,6 +25,7 @@ from scipy import optimize, special, stats
 from archive.analysis import json_safe
 from archive.analysis.verdict import VerdictRules, null_ship_rates
 from archive.pooling.effects import Effect
+from archive.stats.beta_binomial import hierarchical_rates
 from archive.stats.meta import HKSJ_FLOOR_LABEL, heterogeneity
 from archive.stats.meta_groups import GroupPooling, pool_groups
 
@@ -54,7 +57,9 @@ class Rate:
     rate: float | None
     low: float | None  # Jeffreys interval
     high: float | None
-    shrunk: float | None = None  # empirical-Bayes (beta-binomial) estimate across groups
+    shrunk: float | None = None  # posterior mean under the hierarchical beta-binomial model across groups
+    shrunk_low: float | None = None  # its 95% posterior interval
+    shrunk_high: float | None = None
 
 
 def jeffreys(count: int, total: int, level: float = 0.95) -> Rate:
@@ -189,6 +194,7 @@ class PoolResult:
     egger: Egger | None
     assumptions: list[str]
     double_zero: list[str] = field(default_factory=list)  # comparisons left out: no conversions in either arm
+    win_rates: str = ""  # the win-rate model and what it says about differences between groups, in words
 
     def to_dict(self) -> dict[str, Any]:
         return json_safe(dataclasses.asdict(self))  # type: ignore[no-any-return]
@@ -229,7 +235,7 @@ def pool(
     dl = pool_groups(y, v, index, len(names), "DL", hksj=False, prediction=False)
     groups = [_group(name, members[name], re, dl, i) for i, name in enumerate(names)]
     primary = _primary_groups(used, key_of, names)
-    _shrink_rates(groups, used, primary)
+    win_rates = _shrink_rates(groups, used, primary)
     groups.sort(key=lambda g: (-g.lift_low, g.key))
     return PoolResult(
         by=by,
@@ -248,6 +254,7 @@ def pool(
         meta_regression=meta_regression_by_date(used, permutations, seed),
         egger=egger_test(used),
         double_zero=double_zero,
+        win_rates=win_rates,
         assumptions=[
             "Each comparison is an independent estimate: visitors are independent and each test ran to a fixed "
             "horizon.",
@@ -333,22 +340,37 @@ def _primary_groups(used: list[Effect], key_of: Callable[[Effect], list[str]], n
     return [where[keys[0]] if (keys := key_of(e)) else -1 for e in used]
 
 
-def _shrink_rates(groups: list[GroupResult], used: list[Effect], primary: list[int]) -> None:
-    """Empirical-Bayes shrinkage of each group's rate; the Beta spread is fitted with every comparison counted
-    once (in its first group), then applied to each group's own counts. ``groups`` in the order of ``primary``."""
+def _shrink_rates(groups: list[GroupResult], used: list[Effect], primary: list[int]) -> str:
+    """Each group's win (and ship) rate under the hierarchical beta-binomial model (BDA3 §5.3, hyperprior
+    (a + b)^(-5/2)); the hyperparameters are learned with every comparison counted once (in its first group), and
+    each group's posterior uses its own counts. Returns the statement about the win rates in words."""
+    statement = ""
     for attribute in ("wins", "shipped"):
         counts, totals = [0] * len(groups), [0] * len(groups)
         for e, g in zip(used, primary, strict=True):
             if g >= 0:
                 totals[g] += 1
                 counts[g] += e.verdict == "winner" if attribute == "wins" else e.shipped
-        fit = beta_binomial_fit(counts, totals)
-        for r in (getattr(g, attribute) for g in groups):
+        rates: list[Rate] = [getattr(g, attribute) for g in groups]
+        fit = hierarchical_rates([r.count for r in rates], [r.total for r in rates], counts, totals)
+        for i, r in enumerate(rates):
             if fit is not None and r.total:
-                a, b = fit
-                r.shrunk = (r.count + a) / (r.total + a + b)
+                r.shrunk, r.shrunk_low, r.shrunk_high = fit.mean[i], fit.low[i], fit.high[i]
             else:
                 r.shrunk = r.rate
+        if attribute == "wins" and fit is not None:
+            statement = (
+                f"Win rates: hierarchical beta-binomial model (Gelman et al. BDA3 5.3, hyperprior (a + b)^(-5/2)); "
+                f"overall {fit.overall:.1%}, groups alike as if worth {fit.strength_median:,.0f} comparisons of "
+                "prior (posterior median of a + b). "
+                + (
+                    "The data show no difference in win rate between the groups: the spread they allow is smaller "
+                    "than the noise of any single group, so each group's rate is mostly the overall rate."
+                    if fit.no_difference
+                    else "The groups' win rates differ by more than their noise alone would give."
+                )
+            )
+    return statement
 
 
 def false_positive_risk(

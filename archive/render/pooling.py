@@ -37,7 +37,8 @@ def build_pool_memo(p: PoolResult) -> Memo:
             interval(g.prediction_low, g.prediction_high),
             f"{g.tau2:.5f}" + (f" [{g.tau2_low:.5f}, {g.tau2_high:.5f}]" if g.tau2_high is not None else ""),
             f"{g.i_squared:.0%}",
-            f"{g.wins.count}/{g.wins.total} {interval_plain_rate(g.wins)}; shrunk {pct(g.wins.shrunk)}",
+            f"{g.wins.count}/{g.wins.total} {interval_plain_rate(g.wins)}; hierarchical {pct(g.wins.shrunk)} "
+            f"[{pct(g.wins.shrunk_low, 0)}, {pct(g.wins.shrunk_high, 0)}]",
             f"{g.shipped.count}/{g.shipped.total}",
             f"{pct(g.dl_lift, 1, True)} {interval(g.dl_low, g.dl_high)}",
             g.warning or "",
@@ -58,6 +59,8 @@ def build_pool_memo(p: PoolResult) -> Memo:
     ]
     ranked = Section("What tends to win", tables=[Table(headers, rows)])
     checks = []
+    if p.win_rates:
+        checks.append(p.win_rates)
     if p.between_groups is not None:
         b = p.between_groups
         checks.append(f"Do the groups differ? Q between {b.q:.2f}, df {b.df}, p {pvalue(b.p_value)}.")
