@@ -90,7 +90,10 @@ def informed_section(items: list[InformedLift], prior: LiftPrior) -> Section:
 
 def calibration_memo(c: Calibration) -> Memo:
     rows = []
-    for name, s in (("history prior", c.history), (f"flat prior (sd {c.flat_prior_sd:g})", c.flat)):
+    scores = [("history prior", c.history), (f"flat prior (sd {c.flat_prior_sd:g})", c.flat)]
+    if c.running is not None:
+        scores.append(("running win rate", c.running))
+    for name, s in scores:
         rows.append(
             [
                 name,
@@ -122,4 +125,29 @@ def calibration_memo(c: Calibration) -> Memo:
             if better
             else "History does not forecast better than a flat prior here."
         )
-    return Memo("Calibration of history priors", lead, [Section("Scores", tables=[table], bullets=c.notes)])
+    if c.history.brier is not None and c.running is not None and c.running.brier is not None:
+        lead.append(
+            "History also beats the running win rate."
+            if c.history.brier < c.running.brier
+            else "History does not beat the running win rate: it adds nothing beyond how often tests win."
+        )
+    bins = Table(
+        ["P(win) forecast", "comparisons", "mean forecast", "observed wins (Jeffreys 95%)"],
+        [
+            [
+                f"{pct(b.low, 0)}-{pct(b.high, 0)}",
+                str(b.forecasts),
+                pct(b.mean_forecast),
+                "n/a" if b.observed is None else f"{pct(b.observed)} {interval(b.observed_low, b.observed_high)}",
+            ]
+            for b in c.reliability
+        ],
+    )
+    return Memo(
+        "Calibration of history priors",
+        lead,
+        [
+            Section("Scores", tables=[table], bullets=c.notes),
+            Section("Reliability of the history prior's P(win)", tables=[bins]),
+        ],
+    )
