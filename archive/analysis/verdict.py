@@ -215,7 +215,7 @@ def rule_sentence(rules: VerdictRules, alpha: float, margin: float, treatments: 
         f"{alpha:g} after Holm's adjustment over the test's {treatments} comparison(s), the lift is not shown to lie "
         f"within +/-{margin:.1%}, revenue per visitor is not credibly worse than -{rules.revenue_margin:.0%} "
         f"(or is marked unchecked) and every trust check passed; with no true difference it ships in about "
-        f"{family:.1%} of such tests (at most alpha/2)"
+        f"{family:.1%} of such tests (at most alpha/2 with equally sized arms)"
     )
     if rules.ship_on_probability:
         with_probability, _ = null_ship_rates(treatments, alpha, rules)
