@@ -235,9 +235,9 @@ def test_recovers_known_theme_effects_over_seeds() -> None:
     # nominal 95%; with 60 intervals, 85% is more than four binomial standard errors below
     assert np.mean(covered_mean) >= 0.85, np.mean(covered_mean)
     assert np.mean(covered_tau2) >= 0.85, np.mean(covered_tau2)
-    # the prediction interval for the next test of the kind: 93-97% on the demo generator (the plug-in
+    # the prediction interval for the next test of the kind: about 95% on the demo generator (the plug-in
     # Higgins-Thompson-Spiegelhalter interval covered about 90% here)
-    assert 0.93 <= np.mean(covered_next) <= 0.97, np.mean(covered_next)
+    assert 0.93 <= np.mean(covered_next) <= 0.98, np.mean(covered_next)  # measured 96.95% (12 seeds: 96.0%)
 
 
 def test_cli_pool_on_demo_archive(tmp_path: Path) -> None:
