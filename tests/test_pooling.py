@@ -197,16 +197,24 @@ def test_untrusted_tests_are_excluded_and_listed() -> None:
     assert pool(effects, "theme", include_untrusted=True, permutations=0).groups[0].comparisons == 6
 
 
-def test_pooled_group_matches_scalar_meta_analysis() -> None:
-    from archive.stats.meta import random_effects
+def test_pooled_group_matches_statsmodels() -> None:
+    from statsmodels.stats.meta_analysis import combine_effects
 
     rng = np.random.default_rng(3)
     y, v = rng.normal(0.02, 0.03, 12), rng.uniform(0.0003, 0.002, 12)
     effects = [_effect(float(a), float(b), record_id=f"r{i}") for i, (a, b) in enumerate(zip(y, v, strict=True))]
-    (group,) = pool(effects, "theme", permutations=0).groups
-    reference = random_effects(y, v, "REML", hksj=True)
-    assert group.lift == pytest.approx(math.expm1(reference.mean), rel=1e-10)
+    (group,) = pool(effects, "theme", method="DL", permutations=0).groups
+    # statsmodels.stats.meta_analysis.combine_effects(method_re="dl"): tau2 and the random-effects mean
+    reference = combine_effects(y, v, method_re="dl")
+    assert reference.tau2 > 0
     assert group.tau2 == pytest.approx(reference.tau2, rel=1e-8)
+    assert group.lift == pytest.approx(math.expm1(reference.mean_effect_re), rel=1e-10)
+    # HKSJ with the Knapp-Hartung floor: statsmodels' HKSJ SE (no floor) or its plain RE SE, whichever is larger,
+    # times scipy.stats.t.ppf(0.975, 11)
+    se = max(reference.sd_eff_w_re_hksj, reference.sd_eff_w_re)
+    crit = stats.t.ppf(0.975, 11)
+    assert group.lift_low == pytest.approx(math.expm1(reference.mean_effect_re - crit * se), rel=1e-9)
+    assert group.lift_high == pytest.approx(math.expm1(reference.mean_effect_re + crit * se), rel=1e-9)
 
 
 def test_recovers_known_theme_effects_over_seeds() -> None:
