@@ -240,7 +240,7 @@ def random_effects(
     )
 
 
-PREDICTION_POINTS = 128  # midpoints of equal slices of the confidence distribution of tau^2
+PREDICTION_POINTS = 64  # midpoints of equal slices of the confidence distribution of tau^2
 
 
 def _tau2_at_q(y: np.ndarray, v: np.ndarray, targets: np.ndarray) -> np.ndarray:

@@ -189,13 +189,20 @@ class _Model:
 
 
 def _solve_q(
-    model: _Model, target: np.ndarray, q0: np.ndarray, active: np.ndarray, k_var_y: np.ndarray, atol: np.ndarray
+    model: _Model,
+    target: np.ndarray,
+    q0: np.ndarray,
+    active: np.ndarray,
+    k_var_y: np.ndarray,
+    atol: np.ndarray,
+    start: np.ndarray | None = None,
 ) -> np.ndarray:
     """tau^2 with generalised Q(tau^2) = target; 0 where Q(0) <= target.
 
     Q decreases in tau^2, so the root is unique. Upper bracket: Q(t) <= sum (y - ybar)^2 / t = k var(y) / t (the
     weighted mean minimises Q, every weight is <= 1/t), so Q < target at t = 2 k var(y) / target. Newton runs on
     1/target - 1/Q(t), which is close to linear in t where Q behaves like a / (b + t), so few steps are needed.
+    ``start`` (optional) is a known lower bound of the root per group, e.g. the root for a larger target.
     """
     solve = active & (q0 > target)
     hi = np.where(solve, 2 * k_var_y / target, 1.0)
@@ -204,7 +211,8 @@ def _solve_q(
         q, slope = model.generalised_q(t)
         return 1 / target - 1 / q, slope / (q * q)
 
-    root = _bracketed_newton(fn, np.zeros_like(hi), hi, solve, atol)
+    lo = np.zeros_like(hi) if start is None else np.where(solve, np.minimum(start, hi), 0.0)
+    root = _bracketed_newton(fn, lo, hi, solve, atol)
     return np.where(solve, root, 0.0)
 
 
@@ -405,7 +413,8 @@ def _cd_prediction(
     confidence: float,
 ) -> tuple[np.ndarray, np.ndarray]:
     """:func:`archive.stats.meta.cd_prediction_interval` for every group at once: the tau^2 of each slice of its
-    confidence distribution by the bracketed Newton solver, the mixture quantiles by bisection (80 halvings)."""
+    confidence distribution by the bracketed Newton solver (slices in order of growing tau^2, each started from
+    the last root), the mixture quantiles by Newton steps kept inside a shrinking bracket."""
     n = len(df)
     s = model.groups
     u = (np.arange(PREDICTION_POINTS) + 0.5) / PREDICTION_POINTS
@@ -414,9 +423,10 @@ def _cd_prediction(
     if not active.any():
         return np.full(n, np.nan), np.full(n, np.nan)
     dfs = np.where(active, df, 1.0)
-    for j, uj in enumerate(u):
-        target = _by_distinct(lambda d, p=uj: stats.chi2.ppf(p, d), dfs)  # type: ignore[misc]
-        tau2 = _solve_q(model, target, q0, active, k_var_y, atol)
+    tau2 = np.zeros(n)
+    for j in range(PREDICTION_POINTS - 1, -1, -1):  # u falling: chi-square target falling, tau^2 growing
+        target = _by_distinct(lambda d, p=u[j]: stats.chi2.ppf(p, d), dfs)  # type: ignore[misc]
+        tau2 = _solve_q(model, target, q0, active, k_var_y, atol, start=tau2)
         w = 1 / (model.v + s.spread(tau2))
         sw = s.sum(w)
         centres[:, j] = s.sum(w * model.y) / sw
@@ -424,14 +434,27 @@ def _cd_prediction(
     centres = np.where(active[:, None], centres, 0.0)
     scales = np.where(active[:, None] & (scales > 0), scales, 1.0)
     tail = (1 - confidence) / 2
+    spread = np.sqrt(np.mean(scales**2, axis=1) + np.var(centres, axis=1))
+    middle = np.mean(centres, axis=1)
     out = []
     for target_p in (tail, 1 - tail):
         lo = np.min(centres - 10 * scales, axis=1)
         hi = np.max(centres + 10 * scales, axis=1)
-        for _ in range(80):
-            mid = 0.5 * (lo + hi)
-            below = np.mean(special.ndtr((mid[:, None] - centres) / scales), axis=1) < target_p
-            lo = np.where(below, mid, lo)
-            hi = np.where(below, hi, mid)
-        out.append(np.where(active, 0.5 * (lo + hi), np.nan))
+        x = middle + float(special.ndtri(target_p)) * spread
+        todo = active.copy()
+        for _ in range(100):
+            z = (x[:, None] - centres) / scales
+            cdf = np.mean(special.ndtr(z), axis=1) - target_p
+            density = np.mean(np.exp(-0.5 * z * z) / scales, axis=1) / np.sqrt(2 * np.pi)
+            lo = np.where(cdf < 0, x, lo)
+            hi = np.where(cdf > 0, x, hi)
+            step = np.where(density > 0, cdf / np.where(density > 0, density, 1.0), np.inf)
+            candidate = x - step
+            candidate = np.where((candidate > lo) & (candidate < hi), candidate, 0.5 * (lo + hi))
+            done = (np.abs(candidate - x) <= 1e-13 * (np.abs(x) + spread)) | (cdf == 0)
+            x = np.where(todo, candidate, x)
+            todo &= ~done
+            if not todo.any():
+                break
+        out.append(np.where(active, x, np.nan))
     return out[0], out[1]
