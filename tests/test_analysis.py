@@ -289,8 +289,8 @@ def test_without_plan_a_few_conversions_never_ship() -> None:
     # 2 vs 8 conversions of 20 visitors each: below the common-practice floor of conversions per arm
     a = analyze(record([arm("control", 20, 2), arm("b", 20, 8)], plan=None))
     check = next(c for c in a.checks if c.name == "planned sample")
-    assert check.status == "failed" and "common practice" in check.detail
-    assert a.recommendation.action != "ship"
+    assert check.status == "warning" and "common practice" in check.detail
+    assert a.comparisons[0].verdict != "winner" and a.recommendation.action != "ship"
     # enough conversions but no plan: only a warning, and the memo says the horizon cannot be verified
     a = analyze(record([arm("control", 50_000, 1500), arm("b", 50_000, 1700)], plan=None))
     check = next(c for c in a.checks if c.name == "planned sample")

@@ -56,6 +56,8 @@ def analyze(record: Record, orders: Orders | None = None, settings: Settings | N
     margin = margin if margin and margin < 1 else s.rules.default_margin
     alpha = record.plan.alpha if record.plan is not None else s.rules.alpha
     family_rate, _ = null_ship_rates(len(treatments), alpha, s.rules)
+    unplanned = record.plan is None or record.plan.visitors_per_arm is None
+    too_early = unplanned and min(known(a.conversions) for a in arms) < s.rules.min_conversions_without_plan
     revenue = revenue_results(control, treatments, orders, s)
     post_by_name = {a.name: p for a, p in zip(arms, posteriors, strict=True)}
     comparisons = []
@@ -87,6 +89,12 @@ def analyze(record: Record, orders: Orders | None = None, settings: Settings | N
             null_ship_rate=family_rate if s.rules.ship_on_probability else None,
         )
         name, reason = verdict(evidence, s.rules)
+        if name == "winner" and too_early:
+            name = "leaning-better"
+            reason += (
+                f"; no ship yet: no planned sample size and fewer than {s.rules.min_conversions_without_plan} "
+                "conversions in an arm (common practice)"
+            )
         if failed:
             name, reason = downgrade(name), f"{reason}; downgraded: {', '.join(failed)} failed"
         comparisons.append(

@@ -54,9 +54,10 @@ def trust_checks(record: Record, arms: list[Arm], s: Settings) -> list[TrustChec
             checks.append(
                 TrustCheck(
                     "planned sample",
-                    "failed",
-                    f"no planned sample size and only {fewest:,} conversions in the smallest arm (no ship below "
-                    f"{floor} per arm without a plan, common practice): too early to read",
+                    "warning",
+                    f"no planned sample size and only {fewest:,} conversions in the smallest arm: no ship below "
+                    f"{floor} per arm without a plan (common practice); without a pre-registered size the "
+                    "fixed-horizon reading is unverifiable",
                 )
             )
         else:

@@ -11,7 +11,8 @@
    orders file, else the Welch/delta interval from sums of squares) lies above ``-revenue_margin``. Without any
    revenue variance the arm may still win, marked "revenue unchecked", unless its RPV point estimate already
    fell by more than the margin;
-4. every trust check passed (sample ratio, planned sample reached, test finished; see ``analysis.trust``).
+4. every trust check passed (sample ratio, planned sample reached, test finished; see ``analysis.trust``);
+5. without a planned sample size, every arm has at least ``min_conversions_without_plan`` conversions.
 
 Under no true difference the rule ships an arm in at most alpha/2 of tests whatever the number of arms (Holm
 controls the family-wise error; only the positive side ships). :func:`null_ship_rates` gives the figure for a
