@@ -14,6 +14,7 @@ import yaml
 from typer.testing import CliRunner
 
 from archive.analysis import CannotAnalyze, Settings, analyze
+from archive.analysis.verdict import VerdictRules, null_ship_rates
 from archive.cli.main import app
 from archive.records.load import load_record
 from archive.records.model import Record
@@ -83,7 +84,7 @@ def test_flat_multi_arm_keeps_control() -> None:
 def test_early_analysis_fails_the_sample_check() -> None:
     r = record([arm("control", 500, 15), arm("b", 500, 30)], status="stopped-early")
     check = next(c for c in analyze(r).checks if c.name == "planned sample")
-    assert check.status == "failed" and "analysed early" in check.detail
+    assert check.status == "failed" and "did not run to a planned end" in check.detail
 
 
 def test_iterate_with_the_arms_worth_keeping() -> None:
@@ -133,9 +134,12 @@ def test_edge_counts_still_analyse(control: tuple[int, int], treatment: tuple[in
     json.dumps(a.to_dict())  # every figure is JSON-safe (no NaN or infinity)
 
 
-def test_huge_counts() -> None:
+def test_huge_counts_significant_but_too_small_is_not_a_win() -> None:
+    # +0.1% at a billion visitors per arm: significant, but inside the +/-5% margin that matters
     a = analyze(record([arm("control", 10**9, 30_000_000), arm("b", 10**9, 30_030_000)]))
-    assert a.comparisons[0].lift == pytest.approx(0.001) and a.comparisons[0].verdict == "winner"
+    c = a.comparisons[0]
+    assert c.lift == pytest.approx(0.001) and c.significant and c.verdict == "flat"
+    assert "too small to matter" in c.reason and a.recommendation.action == "keep-control"
 
 
 def test_cannot_analyse_one_arm_or_no_visitors() -> None:
@@ -199,6 +203,8 @@ def test_cli_analyze_formats_and_plot(tmp_path: Path) -> None:
         "comparisons",
         "recommendation",
         "settings",
+        "rule",
+        "null_ship_rate",
         "segments",
         "history_prior",
     }
@@ -250,3 +256,123 @@ def test_every_json_key_is_documented(tmp_path: Path) -> None:
     doc = (Path(__file__).resolve().parents[1] / "site" / "reference" / "analysis-json.md").read_text()
     documented = set(__import__("re").findall(r"`([a-z_]+)`", doc))
     assert _keys(data) - documented == set()
+
+
+# --- the ship rule: issue examples, gates, guardrail, and its error rate by seeded simulation -------------------
+
+
+def test_probability_alone_no_longer_ships_a_null_arm() -> None:
+    # control 600/20000, b 662/20000 and three null arms: P(beats control) 0.962 but Holm p 0.305
+    arms = [arm("control", 20_000, 600), arm("b", 20_000, 662)] + [arm(x, 20_000, 600) for x in "cde"]
+    a = analyze(record(arms, plan={"visitors_per_arm": 20_000, "minimum_lift": 0.05}))
+    b = a.comparisons[0]
+    assert b.prob_beat_control > 0.95 and b.p_holm > 0.05 and not b.significant
+    assert b.verdict == "leaning-better" and a.recommendation.action != "ship"
+    # the opt-in probability rule ships it, and says what that costs in false wins
+    opt_in = Settings(rules=VerdictRules(ship_on_probability=True))
+    a = analyze(record(arms, plan={"visitors_per_arm": 20_000, "minimum_lift": 0.05}), settings=opt_in)
+    assert a.comparisons[0].verdict == "winner" and "null ship rate" in a.comparisons[0].reason
+    assert a.null_ship_rate is not None and a.null_ship_rate > 0.1 and "opt-in probability rule" in a.rule
+
+
+def test_stopped_early_without_plan_does_not_ship() -> None:
+    r = record([arm("control", 3000, 90), arm("b", 3000, 122)], status="stopped-early", plan=None)
+    a = analyze(r)
+    assert next(c for c in a.checks if c.name == "planned sample").status == "failed"
+    assert a.recommendation.action != "ship"
+
+
+def test_running_test_fails_the_planned_sample_check_even_past_its_size() -> None:
+    r = record([arm("control", 50_000, 1500), arm("b", 50_000, 1700)], status="running")
+    a = analyze(r)
+    assert next(c for c in a.checks if c.name == "planned sample").status == "failed"
+    assert a.comparisons[0].verdict == "leaning-better" and a.recommendation.action != "ship"
+
+
+def test_without_plan_a_few_conversions_never_ship() -> None:
+    # 2 vs 8 conversions of 20 visitors each: below the common-practice floor of conversions per arm
+    a = analyze(record([arm("control", 20, 2), arm("b", 20, 8)], plan=None))
+    check = next(c for c in a.checks if c.name == "planned sample")
+    assert check.status == "warning" and "common practice" in check.detail
+    assert a.comparisons[0].verdict != "winner" and a.recommendation.action != "ship"
+    # enough conversions but no plan: only a warning, and the memo says the horizon cannot be verified
+    a = analyze(record([arm("control", 50_000, 1500), arm("b", 50_000, 1700)], plan=None))
+    check = next(c for c in a.checks if c.name == "planned sample")
+    assert check.status == "warning" and "unverifiable" in check.detail
+    assert a.recommendation.action == "ship"
+
+
+def test_revenue_down_without_variance_blocks_the_ship() -> None:
+    # conversion up clearly; revenue per visitor down 20% with no sums of squares
+    control = arm("control", 50_000, 1500, revenue=90_000.0)
+    b = arm("b", 50_000, 1700, revenue=72_000.0)
+    a = analyze(record([control, b]))
+    c = a.comparisons[0]
+    assert c.significant and c.revenue_guardrail == "not-shown" and c.verdict == "leaning-better"
+    assert a.recommendation.action == "iterate" and "revenue" in a.recommendation.explanation
+
+
+def test_revenue_not_shown_non_inferior_blocks_the_ship() -> None:
+    # RPV -8% with an interval spanning 0 (sums of squares known): not shown to be no worse than -5%
+    control = arm("control", 50_000, 1500, revenue=90_000.0, revenue_sum_of_squares=1500 * 60.0**2 * 4)
+    b = arm("b", 50_000, 1700, revenue=82_800.0, revenue_sum_of_squares=1700 * 48.7**2 * 4)
+    a = analyze(record([control, b]))
+    c = a.comparisons[0]
+    assert c.revenue.lift == pytest.approx(-0.08)
+    assert c.revenue.lift_low is not None and c.revenue.lift_high is not None
+    assert c.revenue.lift_low < 0 < c.revenue.lift_high
+    assert c.revenue_guardrail == "not-shown" and a.recommendation.action != "ship"
+
+
+def test_revenue_unchecked_ship_is_marked_and_recommendation_mentions_revenue() -> None:
+    a = analyze(record([arm("control", 50_000, 1500, revenue=90_000.0), arm("b", 50_000, 1700, revenue=95_000.0)]))
+    assert a.recommendation.action == "ship" and "revenue unchecked" in a.recommendation.explanation
+    flat = [arm("control", 400_000, 12_000), arm("b", 400_000, 12_010)]
+    assert "revenue" in analyze(record(flat, plan={"visitors_per_arm": 300_000})).recommendation.explanation
+
+
+def test_zero_cell_point_estimate_lies_inside_its_interval() -> None:
+    # 0/500 against 12/500: the observed lift is -100%; its interval must contain it
+    c = analyze(record([arm("control", 500, 12), arm("b", 500, 0)])).comparisons[0]
+    assert c.lift == -1.0 and c.lift_low is not None and c.lift_high is not None
+    assert c.lift_low <= c.lift <= c.lift_high
+
+
+def test_memo_states_the_rule_first() -> None:
+    from archive.render.analysis import build_memo
+
+    a = analyze(record([arm("control", 50_000, 1500), arm("b", 50_000, 1700)]))
+    memo = build_memo(a)
+    assert memo.lead[0].startswith("Ship rule:") and "Holm" in memo.lead[0] and "%" in memo.lead[0]
+    assert any("guardrail" in x for x in a.assumptions)
+
+
+def _simulate(m_arms: int, n: int, rates: list[float], sims: int, seed: int) -> tuple[float, int]:
+    """Share of seeded simulated tests that `analyze` recommends shipping (and how many were run)."""
+    rng = np.random.default_rng(seed)
+    names = ["control"] + [f"t{i}" for i in range(1, m_arms)]
+    counts = rng.binomial(n, np.asarray(rates), size=(sims, m_arms))
+    plan = {"visitors_per_arm": n, "minimum_lift": 0.05, "alpha": 0.05, "split": {x: 1.0 for x in names}}
+    ships = 0
+    for row in counts:
+        r = record([arm(x, n, int(c)) for x, c in zip(names, row, strict=True)], plan=plan)
+        ships += analyze(r).recommendation.action == "ship"
+    return ships / sims, sims
+
+
+@pytest.mark.parametrize(("m_arms", "sims"), [(2, 1200), (3, 700), (5, 400), (10, 200)])
+def test_all_null_ship_rate_holds_alpha(m_arms: int, sims: int) -> None:
+    # every arm at 3% with 20,000 visitors: the stated rule ships in at most alpha/2 = 0.025 of tests (Holm keeps
+    # the family-wise error at alpha; only the positive side ships). Allowance: 3 Monte-Carlo standard errors.
+    rate, runs = _simulate(m_arms, 20_000, [0.03] * m_arms, sims, seed=m_arms)
+    mc_se = math.sqrt(0.025 * 0.975 / runs)
+    assert rate <= 0.025 + 3 * mc_se
+    derived, _ = null_ship_rates(m_arms - 1, 0.05, VerdictRules())
+    assert derived <= 0.025 + 0.001 and abs(rate - derived) <= 3 * math.sqrt(derived * (1 - derived) / runs) + 0.004
+
+
+def test_power_at_the_planned_lift_is_the_plans_power() -> None:
+    # a 2-arm test sized by the two-proportion formula (R power.prop.test convention) for +5% on 3% at power 0.8
+    n = math.ceil(visitors_per_arm(0.03, 0.0315, alpha=0.05, power=0.8))
+    rate, runs = _simulate(2, n, [0.03, 0.0315], 500, seed=11)
+    assert abs(rate - 0.8) <= 3 * math.sqrt(0.8 * 0.2 / runs)

@@ -83,7 +83,8 @@ def test_seventeen_study_or_dl_hksj() -> None:
     assert r.q_p_value == pytest.approx(0.440375456698129, rel=1e-8)
     # Higgins et al. (2009) convention uses the plain RE standard error (R meta's printed PI uses the HKSJ one)
     plain = random_effects(y, v, "DL", hksj=False)
-    half = (r.prediction_high - r.prediction_low) / 2
+    assert r.hts_low is not None and r.hts_high is not None
+    half = (r.hts_high - r.hts_low) / 2
     from scipy import stats
 
     assert half == pytest.approx(stats.t.ppf(0.975, 15) * math.sqrt(r.tau2 + plain.se**2), rel=1e-12)

@@ -184,3 +184,64 @@ def test_cli_prior_plan_calibrate(tmp_path: Path) -> None:
     data = json.loads(result.stdout)
     (item,) = data["history_prior"]["comparisons"]
     assert item["shrunk_lift"] < item["observed_lift"]
+
+
+def test_calibration_running_baseline_and_reliability_table() -> None:
+    import datetime as dt
+
+    from statsmodels.stats.proportion import proportion_confint
+
+    from archive.planning.calibration import calibrate
+    from archive.pooling.effects import Effect
+
+    def effect(i: int, log_rr: float) -> Effect:
+        return Effect(
+            record_id=f"r{i:02d}",
+            arm="b",
+            title="t",
+            themes=["x"],
+            page_area="home",
+            tags=[],
+            started=dt.date(2024, 1, 1) + dt.timedelta(days=7 * i),
+            log_rr=log_rr,
+            variance=0.0004,
+            visitors=1000,
+            control_visitors=1000.0,
+            control_share=1,
+            zero_cell_correction=False,
+            verdict="flat",
+            shipped=False,
+            trusted=True,
+        )
+
+    # se 0.02: a significant win needs log_rr > 1.96 x 0.02; three wins among the first ten, then one of two
+    lifts = [0.06, 0.0, 0.01, 0.05, -0.02, 0.0, 0.07, 0.01, -0.01, 0.02, 0.08, 0.0]
+    result = calibrate([effect(i, x) for i, x in enumerate(lifts)])
+    assert result.history.forecasts == 2 and result.running is not None
+    # running win rate, by hand: (3 + 1/2) / (10 + 1) before the 11th test, (4 + 1/2) / (11 + 1) before the 12th;
+    # the 11th won, the 12th did not
+    f11, f12 = 3.5 / 11, 4.5 / 12
+    assert result.running.brier == pytest.approx(((f11 - 1) ** 2 + f12**2) / 2, rel=1e-12)
+    assert sum(b.forecasts for b in result.reliability) == 2
+    for b in result.reliability:
+        if b.forecasts:
+            wins = round((b.observed or 0.0) * b.forecasts)
+            # statsmodels proportion_confint(method="jeffreys") for the bin's observed share
+            low, high = proportion_confint(wins, b.forecasts, method="jeffreys")
+            assert b.observed_high == pytest.approx(1.0 if wins == b.forecasts else high, rel=1e-9)
+            assert b.observed_low == pytest.approx(0.0 if wins == 0 else low, abs=1e-12)
+
+
+def test_plan_false_positive_risk_uses_the_ship_rule() -> None:
+    # two arms: the ship rule's false-win rate is the positive side of a two-sided 0.05 test, 0.025; a theme win
+    # rate of 0.025 + 0.1 x (0.8 - 0.025) then implies pi = 0.10, and Kohavi, Deng & Vermeer (2022) give FPR 22.0%
+    # at alpha 0.05 and power 0.8 (check-values §11)
+    plan = plan_test(0.03, 0.05, theme_win_rate=0.025 + 0.1 * 0.775)
+    assert plan.false_win_rate == pytest.approx(0.025, abs=0.0015)
+    assert plan.theme_success_rate == pytest.approx(0.10, abs=0.005)
+    assert plan.false_positive_risk == pytest.approx(0.220, abs=0.005)
+    # four arms: Holm over three comparisons wins a null comparison far less often (about 0.05 / 6), so the same
+    # theme history gives a smaller risk per winner
+    four = plan_test(0.03, 0.05, arms=4, theme_win_rate=0.025 + 0.1 * 0.775)
+    assert four.false_win_rate is not None and four.false_win_rate < 0.012
+    assert four.false_positive_risk is not None and four.false_positive_risk < 0.12

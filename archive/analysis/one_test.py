@@ -9,10 +9,19 @@ from __future__ import annotations
 import dataclasses
 
 from archive.analysis.recommend import recommend
-from archive.analysis.results import Analysis, ArmResult, CannotAnalyze, Comparison, Settings, json_safe, known
+from archive.analysis.results import (
+    Analysis,
+    ArmResult,
+    CannotAnalyze,
+    Comparison,
+    RevenueResult,
+    Settings,
+    json_safe,
+    known,
+)
 from archive.analysis.revenue import revenue_results
 from archive.analysis.trust import trust_checks
-from archive.analysis.verdict import Evidence, downgrade, verdict
+from archive.analysis.verdict import Evidence, downgrade, null_ship_rates, revenue_guardrail, rule_sentence, verdict
 from archive.records.model import Arm, Record
 from archive.records.orders import Orders
 from archive.stats import bayes
@@ -45,6 +54,10 @@ def analyze(record: Record, orders: Orders | None = None, settings: Settings | N
     holm_p = list(holm([r.p_value for r in rates]))
     margin = s.margin or (record.plan.minimum_lift if record.plan and record.plan.minimum_lift else None)
     margin = margin if margin and margin < 1 else s.rules.default_margin
+    alpha = record.plan.alpha if record.plan is not None else s.rules.alpha
+    family_rate, _ = null_ship_rates(len(treatments), alpha, s.rules)
+    unplanned = record.plan is None or record.plan.visitors_per_arm is None
+    too_early = unplanned and min(known(a.conversions) for a in arms) < s.rules.min_conversions_without_plan
     revenue = revenue_results(control, treatments, orders, s)
     post_by_name = {a.name: p for a, p in zip(arms, posteriors, strict=True)}
     comparisons = []
@@ -58,11 +71,30 @@ def analyze(record: Record, orders: Orders | None = None, settings: Settings | N
             known(control.conversions),
             known(control.visitors),
             margin,
-            s.rules.alpha,
+            alpha,
         )
         rev = revenue[t.name]
-        evidence = Evidence(r.lift, float(p_h), beat, eq.equivalent, rev.difference_low, rev.difference_high)
+        guard, guard_words = _guardrail(rev, s.rules.revenue_margin)
+        evidence = Evidence(
+            r.lift,
+            float(p_h),
+            beat,
+            eq.equivalent,
+            rev.difference_low,
+            rev.difference_high,
+            alpha=alpha,
+            margin=margin,
+            guardrail=guard,
+            revenue_check=guard_words,
+            null_ship_rate=family_rate if s.rules.ship_on_probability else None,
+        )
         name, reason = verdict(evidence, s.rules)
+        if name == "winner" and too_early:
+            name = "leaning-better"
+            reason += (
+                f"; no ship yet: no planned sample size and fewer than {s.rules.min_conversions_without_plan} "
+                "conversions in an arm (common practice)"
+            )
         if failed:
             name, reason = downgrade(name), f"{reason}; downgraded: {', '.join(failed)} failed"
         comparisons.append(
@@ -87,6 +119,11 @@ def analyze(record: Record, orders: Orders | None = None, settings: Settings | N
                 verdict=name,
                 reason=reason,
                 downgraded_by=list(failed),
+                alpha=alpha,
+                significant=bool(p_h < alpha),
+                revenue_guardrail=guard,
+                revenue_margin=s.rules.revenue_margin,
+                revenue_check=guard_words,
             )
         )
     recommendation = recommend(record, control, comparisons, arm_results, s)
@@ -95,7 +132,7 @@ def analyze(record: Record, orders: Orders | None = None, settings: Settings | N
         title=record.title,
         status=record.status,
         control=control.name,
-        assumptions=_assumptions(s, margin, orders is not None),
+        assumptions=_assumptions(s, margin, alpha, orders is not None, family_rate, len(treatments)),
         checks=checks,
         arms=arm_results,
         comparisons=comparisons,
@@ -111,9 +148,22 @@ def analyze(record: Record, orders: Orders | None = None, settings: Settings | N
                 "bootstrap_replicates": s.bootstrap_replicates,
                 "seed": s.seed,
                 "rules": dataclasses.asdict(s.rules),
+                "alpha": alpha,
             }
         ),
+        rule=rule_sentence(s.rules, alpha, margin, len(treatments)),
+        null_ship_rate=family_rate,
     )
+
+
+def _guardrail(rev: RevenueResult, margin: float) -> tuple[str, str]:
+    """The revenue guardrail of one comparison: the bootstrap interval of the RPV lift with an orders file, else
+    the Welch/delta interval from sums of squares."""
+    lift_low = rev.lift_low
+    if rev.bootstrap is not None and rev.bootstrap.lift_low is not None:
+        lift_low = rev.bootstrap.lift_low
+    known_variance = rev.method in ("orders-file", "sum-of-squares")
+    return revenue_guardrail(rev.lift, lift_low, rev.difference_high, known_variance, margin)
 
 
 def _usable_arms(record: Record) -> list[Arm]:
@@ -149,14 +199,27 @@ def _arm_result(a: Arm, post: bayes.BetaPosterior, p_best: float, loss: float, s
     )
 
 
-def _assumptions(s: Settings, margin: float, has_orders: bool) -> list[str]:
+def _assumptions(
+    s: Settings, margin: float, alpha: float, has_orders: bool, family_rate: float, treatments: int
+) -> list[str]:
     items = [
         "Visitors are independent and each saw one arm for the whole test (randomised by visitor).",
-        "Fixed horizon: the test was analysed once, at its planned end; repeated peeking makes p-values too small.",
-        f"Prior: {s.prior_label}. Posterior probabilities are about true conversion rates under this prior.",
-        f"Intervals are {s.confidence:.0%}; p-values are two-sided and Holm-adjusted across the test's comparisons.",
-        f"Flat means the {1 - 2 * s.rules.alpha:.0%} interval of the relative lift lies within +/-{margin:.1%} (TOST).",
-        "Revenue per visitor is read after conversion; the decision rests on conversion first.",
+        "Fixed horizon: the test was analysed once, at its planned end; repeated peeking makes p-values too small. "
+        "Without a pre-registered sample size this cannot be verified from the record.",
+        f"Prior: {s.prior_label}. Posterior probabilities are about true conversion rates under this prior; "
+        "they inform the leaning verdicts"
+        + (" and, by the opt-in probability rule, a win." if s.rules.ship_on_probability else ", never a ship."),
+        f"Intervals are {s.confidence:.0%}; p-values are two-sided and Holm-adjusted across the test's {treatments} "
+        f"comparison(s); significance at alpha {alpha:g} (the plan's, else the default).",
+        f"Error rate: with no true difference an arm of this test is shipped in about {family_rate:.1%} of tests "
+        "(normal approximation, equally sized arms; at most alpha/2 without the probability rule).",
+        f"Flat means the {1 - 2 * alpha:.0%} interval of the relative lift lies within +/-{margin:.1%} (TOST); "
+        "a significant lift inside that margin is not a win.",
+        f"Revenue per visitor is a guardrail: a ship needs the lower end of its 95% interval above "
+        f"-{s.rules.revenue_margin:.0%} (non-inferiority); without revenue variance a ship is marked "
+        "'revenue unchecked'.",
+        f"Without a planned sample size no arm ships with fewer than {s.rules.min_conversions_without_plan} "
+        "conversions in any arm (common practice).",
     ]
     if has_orders:
         items.append(

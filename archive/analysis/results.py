@@ -104,6 +104,11 @@ class Comparison:
     verdict: str
     reason: str
     downgraded_by: list[str] = field(default_factory=list)
+    alpha: float = 0.05  # the two-sided level the Holm p-value is read at (the plan's, else the default)
+    significant: bool = False  # p_holm < alpha
+    revenue_guardrail: str = "unchecked"  # non-inferior, unchecked, not-shown or worse
+    revenue_margin: float = 0.05  # non-inferiority margin of relative revenue per visitor
+    revenue_check: str = ""  # the guardrail in words
 
 
 @dataclass
@@ -131,6 +136,8 @@ class Analysis:
     comparisons: list[Comparison]
     recommendation: Recommendation
     settings: dict[str, Any]
+    rule: str = ""  # the ship rule in one sentence, with its error rate
+    null_ship_rate: float | None = None  # P(ship some arm | no arm differs), for this test's number of arms
 
     def to_dict(self) -> dict[str, Any]:
         return json_safe(dataclasses.asdict(self))

@@ -36,18 +36,42 @@ def trust_checks(record: Record, arms: list[Arm], s: Settings) -> list[TrustChec
             TrustCheck("sample ratio", status, f"split {shares} fits {basis} (p {srm.p_value:.2g})", srm.p_value)
         )
 
-    if plan is None or plan.visitors_per_arm is None:
+    least = min(visitors)
+    fewest = min(known(a.conversions) for a in arms)
+    floor = s.rules.min_conversions_without_plan
+    if record.status != "finished":
+        planned = f" of {plan.visitors_per_arm:,} planned" if plan is not None and plan.visitors_per_arm else ""
         checks.append(
             TrustCheck(
                 "planned sample",
-                "warning",
-                "no planned sample size: the fixed-horizon reading assumes the test was not stopped on seeing the data",
+                "failed",
+                f"status {record.status}: the test did not run to a planned end ({least:,} visitors in the smallest "
+                f"arm{planned}); reading it now inflates false positives",
             )
         )
+    elif plan is None or plan.visitors_per_arm is None:
+        if fewest < floor:
+            checks.append(
+                TrustCheck(
+                    "planned sample",
+                    "warning",
+                    f"no planned sample size and only {fewest:,} conversions in the smallest arm: no ship below "
+                    f"{floor} per arm without a plan (common practice); without a pre-registered size the "
+                    "fixed-horizon reading is unverifiable",
+                )
+            )
+        else:
+            checks.append(
+                TrustCheck(
+                    "planned sample",
+                    "warning",
+                    "no planned sample size: without a pre-registered size the fixed-horizon reading is "
+                    "unverifiable (the test may have been stopped on seeing the data)",
+                )
+            )
     else:
         short = [a.name for a in arms if known(a.visitors) < plan.visitors_per_arm]
-        least = min(visitors)
-        if short or record.status == "stopped-early":
+        if short:
             checks.append(
                 TrustCheck(
                     "planned sample",

@@ -8,8 +8,11 @@ before ``MIN_HISTORY`` earlier comparisons exist). Two forecasts are scored agai
 * P(significant win) = P(y / se > z) under that predictive distribution, scored by the Brier score against
   whether the comparison was a significant win (z-test of the log risk ratio at two-sided 0.05).
 
-The comparator is a flat prior: Normal(0, ``FLAT_SD``^2) on the log lift, i.e. "any lift between about -40% and
-+60% is as plausible as no change" without looking at history.
+Two comparators: a flat prior, Normal(0, ``FLAT_SD``^2) on the log lift ("any lift between about -40% and +60% is
+as plausible as no change", without looking at history), and the running win rate, P(win) = (earlier wins + 1/2)
+/ (earlier comparisons + 1), which knows how often tests won but nothing about the kind of test. A reliability
+table bins the history prior's P(win) and sets the observed share of wins beside each bin's mean forecast, with
+a Jeffreys 95% interval of that share (calibrated: the mean forecast inside it).
 """
 
 from __future__ import annotations
@@ -17,7 +20,7 @@ from __future__ import annotations
 import dataclasses
 import datetime as dt
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 from scipy import stats
@@ -25,11 +28,12 @@ from scipy import stats
 from archive.analysis import json_safe
 from archive.planning.priors import LiftPrior, lift_prior
 from archive.pooling.effects import Effect
-from archive.pooling.groups import MIN_GROUP
+from archive.pooling.groups import MIN_GROUP, jeffreys
 
 MIN_HISTORY = 10
 FLAT_SD = 0.25
 Z = float(stats.norm.ppf(0.975))
+BIN_EDGES = (0.0, 0.05, 0.1, 0.2, 0.35, 0.5, 1.0)  # forecast bins of the reliability table
 
 
 @dataclass
@@ -43,6 +47,17 @@ class Score:
 
 
 @dataclass
+class ReliabilityBin:
+    low: float  # forecast P(win) in [low, high)
+    high: float
+    forecasts: int
+    mean_forecast: float | None
+    observed: float | None  # share of those comparisons that won
+    observed_low: float | None  # Jeffreys 95% interval of that share
+    observed_high: float | None
+
+
+@dataclass
 class Calibration:
     history: Score
     flat: Score
@@ -50,6 +65,8 @@ class Calibration:
     min_history: int
     flat_prior_sd: float
     notes: list[str]
+    running: Score | None = None  # the running win rate of earlier comparisons as the forecast of P(win)
+    reliability: list[ReliabilityBin] = field(default_factory=list)  # of the history prior's P(win)
 
     def to_dict(self) -> dict[str, Any]:
         return json_safe(dataclasses.asdict(self))  # type: ignore[no-any-return]
@@ -78,9 +95,27 @@ def _forecast(prior_mean: float, prior_sd: float, e: Effect) -> tuple[float, flo
     return p_win, 2 * Z * spread, covered, won
 
 
+def reliability_table(rows: list[tuple[float, bool]]) -> list[ReliabilityBin]:
+    """(forecast, won) pairs binned by forecast (``BIN_EDGES``), with the observed share and its Jeffreys interval."""
+    out = []
+    for low, high in zip(BIN_EDGES[:-1], BIN_EDGES[1:], strict=True):
+        inside = [(f, w) for f, w in rows if low <= f < high or (high == 1.0 and f == 1.0)]
+        if not inside:
+            out.append(ReliabilityBin(low, high, 0, None, None, None, None))
+            continue
+        wins = sum(w for _, w in inside)
+        share = jeffreys(wins, len(inside))
+        out.append(
+            ReliabilityBin(
+                low, high, len(inside), sum(f for f, _ in inside) / len(inside), share.rate, share.low, share.high
+            )
+        )
+    return out
+
+
 def calibrate(effects: list[Effect]) -> Calibration:
     trusted = sorted((e for e in effects if e.trusted), key=lambda e: (e.started or dt.date.min, e.record_id, e.arm))
-    history_rows, flat_rows, skipped = [], [], 0
+    history_rows, flat_rows, running_rows, skipped = [], [], [], 0
     for e in trusted:
         earlier = [x for x in trusted if x.started and e.started and x.started < e.started]
         if len(earlier) < MIN_HISTORY:
@@ -89,6 +124,11 @@ def calibrate(effects: list[Effect]) -> Calibration:
         prior: LiftPrior = lift_prior(earlier, e.themes[0])
         history_rows.append(_forecast(prior.mean, prior.sd, e))
         flat_rows.append(_forecast(0.0, FLAT_SD, e))
+        wins = sum(x.log_rr / x.se > Z for x in earlier)
+        running_rows.append((wins + 0.5) / (len(earlier) + 1))
+    won = [r[3] for r in history_rows]
+    running = _score([(f, 0.0, False, w) for f, w in zip(running_rows, won, strict=True)])
+    running.coverage = running.mean_width = None  # a win rate forecasts no interval of the lift
     return Calibration(
         _score(history_rows),
         _score(flat_rows),
@@ -98,6 +138,11 @@ def calibrate(effects: list[Effect]) -> Calibration:
         [
             f"Priors use only tests that started earlier; the first {MIN_HISTORY} comparisons have no history.",
             f"A theme needs {MIN_GROUP} earlier comparisons for its own prior; otherwise all earlier ones are used.",
-            "Well calibrated: coverage near 95% with narrow intervals, and a low Brier score.",
+            "Well calibrated: coverage near 95% with narrow intervals, a low Brier score, and in the reliability "
+            "table each bin's mean forecast inside the interval of its observed share.",
+            "The running win rate is the baseline to beat: a history prior that does not beat it adds nothing "
+            "beyond how often tests win.",
         ],
+        running,
+        reliability_table([(r[0], r[3]) for r in history_rows]),
     )

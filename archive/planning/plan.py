@@ -88,6 +88,7 @@ class TestPlan:
     exaggeration_at_expected_lift: float | None = None
     theme_success_rate: float | None = None
     false_positive_risk: float | None = None
+    false_win_rate: float | None = None  # P(winner | no true effect) per comparison under the analysis' ship rule
     warnings: list[str] = field(default_factory=list)
     assumptions: list[str] = field(default_factory=list)
 
@@ -137,6 +138,7 @@ def plan_test(
     correction: Correction = "bonferroni",
     prior: LiftPrior | None = None,
     theme_win_rate: float | None = None,
+    theme_false_win_rate: float | None = None,
 ) -> TestPlan:
     if arms < 2:
         raise ValueError("a test needs at least two arms (control and one change)")
@@ -215,13 +217,23 @@ def plan_test(
             )
         result.assumptions.append(f"Prior: {prior.label()}.")
     if theme_win_rate is not None:
-        from archive.pooling.groups import false_positive_risk
+        from archive.analysis.verdict import VerdictRules, null_ship_rates
+        from archive.pooling.groups import false_positive_risk, fpr_from_prior
 
-        implied = false_positive_risk(theme_win_rate, alpha, power)
+        # false-win rates of the ship rule (Holm, positive side): for the theme's past comparisons (two-arm tests
+        # unless told) and for a comparison of this plan
+        past = theme_false_win_rate
+        if past is None:
+            past = null_ship_rates(1, alpha, VerdictRules())[1]
+        new = null_ship_rates(treatments, alpha, VerdictRules())[1]
+        implied = false_positive_risk(theme_win_rate, alpha, power, past)
         if implied is not None:
             result.theme_success_rate, _ = implied
-            from archive.pooling.groups import fpr_from_prior
-
             pi = implied[0]
-            result.false_positive_risk = fpr_from_prior(pi, per_alpha, power) if pi > 0 else 1.0
+            result.false_positive_risk = fpr_from_prior(pi, alpha, power, new) if pi > 0 else 1.0
+            result.false_win_rate = new
+            result.assumptions.append(
+                f"False positive risk: the analysis' ship rule calls a winner in {new:.2%} of comparisons without "
+                f"a true effect here (Holm at alpha {alpha:g} over {treatments} comparison(s), positive side)."
+            )
     return result

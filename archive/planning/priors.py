@@ -55,7 +55,7 @@ class LiftPrior:
 def _fit(effects: list[Effect], source: str, warning: str | None = None) -> LiftPrior:
     y = np.array([e.log_rr for e in effects])
     v = np.array([e.variance for e in effects])
-    re = random_effects(y, v, "REML", hksj=False)
+    re = random_effects(y, v, "REML", hksj=False, prediction=False)
     return LiftPrior(source, len(effects), re.mean, math.sqrt(re.tau2 + re.se**2), re.tau2, warning)
 
 

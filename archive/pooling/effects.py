@@ -45,6 +45,7 @@ class Effect:
     rpv_log_ratio: float | None = None
     rpv_variance: float | None = None
     segment: str | None = None  # for segment-level effects: "dimension=value"
+    double_zero: bool = False  # no conversions (or only conversions) in both arms: no information on the ratio
 
     @property
     def lift(self) -> float:
@@ -135,9 +136,14 @@ def record_effects_from(record: Record, analysis: Analysis) -> list[Effect]:
                 failed_checks=failed,
                 rpv_log_ratio=rpv,
                 rpv_variance=rpv_var,
+                double_zero=_double_zero(x_t, n_t, x_c, n_c),
             )
         )
     return out
+
+
+def _double_zero(x_t: float, n_t: float, x_c: float, n_c: float) -> bool:
+    return (x_t == 0 and x_c == 0) or (x_t == n_t and x_c == n_c)
 
 
 def segment_effects(
@@ -173,6 +179,7 @@ def segment_effects(
                         "rpv_log_ratio": None,
                         "rpv_variance": None,
                         "segment": f"{dimension}={value}",
+                        "double_zero": _double_zero(t.conversions, t.visitors, c.conversions, c.visitors),
                     }
                 )
             )

@@ -2,10 +2,12 @@
 
 ``pool(effects, by)`` groups the comparisons (see :mod:`archive.pooling.effects`) and, per group, runs a random-effects
 meta-analysis of the log risk ratios: REML tau^2 with the Hartung-Knapp-Sidik-Jonkman interval by default
-(Cochrane's current guidance), DerSimonian-Laird shown as the classic comparison; the prediction interval for
-the next test of that kind follows Higgins, Thompson & Spiegelhalter (2009): t with k-2 df. Groups with fewer
-than ``MIN_GROUP`` comparisons are kept and flagged. Win rates get Jeffreys intervals and empirical-Bayes
-(beta-binomial) shrinkage across groups; the programme's false positive risk follows Kohavi & Chen (2024).
+(Cochrane's current guidance; Knapp-Hartung floor max(1, q)), DerSimonian-Laird shown as the classic comparison;
+the prediction interval for the next test of that kind carries tau^2's uncertainty through its confidence
+distribution (:func:`archive.stats.meta.cd_prediction_interval`). Groups with fewer than ``MIN_GROUP`` comparisons
+are kept and flagged. Win rates get Jeffreys intervals and the posterior of a hierarchical beta-binomial model
+across groups (:mod:`archive.stats.beta_binomial`); the programme's false positive risk follows Kohavi & Chen
+(2024) with the false-win rate of the ship rule actually used.
 """
 
 from __future__ import annotations
@@ -21,8 +23,10 @@ import numpy as np
 from scipy import optimize, special, stats
 
 from archive.analysis import json_safe
+from archive.analysis.verdict import VerdictRules, null_ship_rates
 from archive.pooling.effects import Effect
-from archive.stats.meta import heterogeneity
+from archive.stats.beta_binomial import hierarchical_rates
+from archive.stats.meta import HKSJ_FLOOR_LABEL, heterogeneity
 from archive.stats.meta_groups import GroupPooling, pool_groups
 
 MIN_GROUP = 5  # fewer comparisons than this: shown with a warning (common practice for random-effects pooling)
@@ -53,7 +57,9 @@ class Rate:
     rate: float | None
     low: float | None  # Jeffreys interval
     high: float | None
-    shrunk: float | None = None  # empirical-Bayes (beta-binomial) estimate across groups
+    shrunk: float | None = None  # posterior mean under the hierarchical beta-binomial model across groups
+    shrunk_low: float | None = None  # its 95% posterior interval
+    shrunk_high: float | None = None
 
 
 def jeffreys(count: int, total: int, level: float = 0.95) -> Rate:
@@ -132,14 +138,16 @@ class Programme:
     win_rate: Rate
     alpha: float
     assumed_power: float
-    true_success_rate: float | None  # Kohavi & Chen (2024): (w - alpha/2) / (power - alpha/2)
-    false_positive_risk: float | None  # (alpha/2)(1 - pi) / w
+    true_success_rate: float | None  # Kohavi & Chen (2024): (w - f) / (power - f), f the rule's false-win rate
+    false_positive_risk: float | None  # f (1 - pi) / w
     shipped: int
     shipped_mean_observed_lift: float | None
     shipped_mean_shrunk_lift: float | None
     overstatement: float | None  # observed / shrunk, mean over shipped comparisons
     lee_shen_bias: float | None  # expected excess of the summed shipped log-lifts (Lee & Shen 2018)
     summed_shipped_log_lift: float | None
+    false_win_rate: float | None = None  # P(winner | no true effect) per comparison under the ship rule used
+    false_win_rate_source: str = ""
 
 
 @dataclass
@@ -185,6 +193,8 @@ class PoolResult:
     meta_regression: MetaRegression | None
     egger: Egger | None
     assumptions: list[str]
+    double_zero: list[str] = field(default_factory=list)  # comparisons left out: no conversions in either arm
+    win_rates: str = ""  # the win-rate model and what it says about differences between groups, in words
 
     def to_dict(self) -> dict[str, Any]:
         return json_safe(dataclasses.asdict(self))  # type: ignore[no-any-return]
@@ -207,7 +217,11 @@ def pool(
         raise ValueError("method is REML, PM or DL")
     key_of = keys or (lambda e: group_keys(e, by))
     excluded = sorted({e.record_id for e in effects if not e.trusted}) if not include_untrusted else []
-    used = [e for e in effects if include_untrusted or e.trusted]
+    trusted = [e for e in effects if include_untrusted or e.trusted]
+    double_zero = sorted(
+        f"{e.record_id}/{e.arm}" + (f" ({e.segment})" if e.segment else "") for e in trusted if e.double_zero
+    )
+    used = [e for e in trusted if not e.double_zero]
     split = sorted({f"{e.record_id} (control split {e.control_share} ways)" for e in used if e.control_share > 1})
     members: dict[str, list[Effect]] = defaultdict(list)
     for e in used:
@@ -218,32 +232,42 @@ def pool(
     v = np.array([e.variance for name in names for e in members[name]])
     index = np.repeat(np.arange(len(names)), [len(members[name]) for name in names])
     re = pool_groups(y, v, index, len(names), method, hksj=hksj)  # type: ignore[arg-type]
-    dl = pool_groups(y, v, index, len(names), "DL", hksj=False)
+    dl = pool_groups(y, v, index, len(names), "DL", hksj=False, prediction=False)
     groups = [_group(name, members[name], re, dl, i) for i, name in enumerate(names)]
-    _shrink_rates(groups)
+    primary = _primary_groups(used, key_of, names)
+    win_rates = _shrink_rates(groups, used, primary)
     groups.sort(key=lambda g: (-g.lift_low, g.key))
     return PoolResult(
         by=by,
         method=f"{method} tau^2"
-        + (", Hartung-Knapp-Sidik-Jonkman interval (t, k-1 df)" if hksj else ", normal interval"),
+        + (f", {HKSJ_FLOOR_LABEL} (Hartung-Knapp-Sidik-Jonkman)" if hksj else ", normal interval"),
         interval="95% confidence interval of the mean relative lift of the group's tests",
-        prediction_convention="95% prediction interval for the true lift of a new test of the kind: Higgins, "
-        "Thompson & Spiegelhalter (2009), mean +/- t(k-2) sqrt(tau^2 + SE^2)",
+        prediction_convention="95% prediction interval for the true lift of a new test of the kind, carrying the "
+        "uncertainty of tau^2 through its Q-profile confidence distribution (after Nagashima, Noma & Furukawa "
+        "2019); shown from 3 comparisons: with fewer the spread between tests cannot be estimated",
         ranking="ranked by the lower end of the 95% interval of the pooled lift, never by the point estimate alone",
         groups=groups,
         excluded=excluded,
         split_controls=split,
         programme=_programme(used, groups, alpha, assumed_power),
-        between_groups=_between(groups),
+        between_groups=_between(used, primary, names, method),
         meta_regression=meta_regression_by_date(used, permutations, seed),
         egger=egger_test(used),
+        double_zero=double_zero,
+        win_rates=win_rates,
         assumptions=[
             "Each comparison is an independent estimate: visitors are independent and each test ran to a fixed "
             "horizon.",
             "A shared control is split evenly across its comparisons (Cochrane Handbook, studies with more than two "
             "intervention groups); the comparisons stay somewhat correlated.",
-            f"Win rates count verdicts of the per-test analysis; the false positive risk assumes two-sided alpha "
-            f"{alpha:g} and power {assumed_power:.0%} at the true effects (an assumption, not a measurement).",
+            "Win rates count verdicts of the per-test analysis (its ship rule); the false positive risk uses that "
+            f"rule's false-win rate per comparison at two-sided alpha {alpha:g} (Holm within each test) and assumes "
+            f"power {assumed_power:.0%} at the true effects (an assumption, not a measurement).",
+            "Comparisons with no conversions in either arm carry no information on the ratio and are left out "
+            "(as metafor's default for risk ratios)."
+            + (f" Here: {', '.join(double_zero)}." if double_zero else ""),
+            "The between-group test and the fit of the win-rate spread count each comparison once, in the first "
+            "of its groups (a test with two themes would otherwise count twice).",
             "Tests that failed a trust check are left out"
             + ("" if not include_untrusted else " (here: included)")
             + ".",
@@ -310,32 +334,66 @@ def _group(key: str, items: list[Effect], re: GroupPooling, dl: GroupPooling, i:
     )
 
 
-def _shrink_rates(groups: list[GroupResult]) -> None:
+def _primary_groups(used: list[Effect], key_of: Callable[[Effect], list[str]], names: list[str]) -> list[int]:
+    """Each comparison's first group (index into ``names``), -1 for none: one membership per comparison."""
+    where = {name: i for i, name in enumerate(names)}
+    return [where[keys[0]] if (keys := key_of(e)) else -1 for e in used]
+
+
+def _shrink_rates(groups: list[GroupResult], used: list[Effect], primary: list[int]) -> str:
+    """Each group's win (and ship) rate under the hierarchical beta-binomial model (BDA3 §5.3, hyperprior
+    (a + b)^(-5/2)); the hyperparameters are learned with every comparison counted once (in its first group), and
+    each group's posterior uses its own counts. Returns the statement about the win rates in words."""
+    statement = ""
     for attribute in ("wins", "shipped"):
+        counts, totals = [0] * len(groups), [0] * len(groups)
+        for e, g in zip(used, primary, strict=True):
+            if g >= 0:
+                totals[g] += 1
+                counts[g] += e.verdict == "winner" if attribute == "wins" else e.shipped
         rates: list[Rate] = [getattr(g, attribute) for g in groups]
-        fit = beta_binomial_fit([r.count for r in rates], [r.total for r in rates])
-        for r in rates:
+        fit = hierarchical_rates([r.count for r in rates], [r.total for r in rates], counts, totals)
+        for i, r in enumerate(rates):
             if fit is not None and r.total:
-                a, b = fit
-                r.shrunk = (r.count + a) / (r.total + a + b)
+                r.shrunk, r.shrunk_low, r.shrunk_high = fit.mean[i], fit.low[i], fit.high[i]
             else:
                 r.shrunk = r.rate
+        if attribute == "wins" and fit is not None:
+            statement = (
+                f"Win rates: hierarchical beta-binomial model (Gelman et al. BDA3 5.3, hyperprior (a + b)^(-5/2)); "
+                f"overall {fit.overall:.1%}, groups alike as if worth {fit.strength_median:,.0f} comparisons of "
+                "prior (posterior median of a + b). "
+                + (
+                    "The data show no difference in win rate between the groups: the spread they allow is smaller "
+                    "than the noise of any single group, so each group's rate is mostly the overall rate."
+                    if fit.no_difference
+                    else "The groups' win rates differ by more than their noise alone would give."
+                )
+            )
+    return statement
 
 
-def false_positive_risk(win_rate: float, alpha: float, power: float) -> tuple[float, float] | None:
-    """Kohavi & Chen (2024): true success rate pi = (w - alpha/2) / (power - alpha/2), clipped to [0, 1], and
-    the false positive risk of a winner FPR = (alpha/2)(1 - pi) / w. None when w is 0."""
+def false_positive_risk(
+    win_rate: float, alpha: float, power: float, false_win_rate: float | None = None
+) -> tuple[float, float] | None:
+    """Kohavi & Chen (2024): true success rate pi = (w - f) / (power - f), clipped to [0, 1], and the false positive
+    risk of a winner FPR = f (1 - pi) / w, where f is the rate at which a comparison without a true effect is called
+    a winner: alpha/2 for a single two-sided test read on its positive side (their formula), or the false-win rate
+    of the ship rule actually used. None when w is 0."""
     if not 0 < alpha < 1 or not 0 < power <= 1:
         raise ValueError("alpha in (0, 1), power in (0, 1]")
     if win_rate <= 0:
         return None
-    pi = min(1.0, max(0.0, (win_rate - alpha / 2) / (power - alpha / 2)))
-    return pi, min(1.0, (alpha / 2) * (1 - pi) / win_rate)
+    f = alpha / 2 if false_win_rate is None else false_win_rate
+    pi = min(1.0, max(0.0, (win_rate - f) / (power - f)))
+    return pi, min(1.0, f * (1 - pi) / win_rate)
 
 
-def fpr_from_prior(pi: float, alpha: float, power: float) -> float:
-    """Kohavi, Deng & Vermeer (2022): FPR = (alpha/2)(1 - pi) / ((alpha/2)(1 - pi) + power pi)."""
-    return (alpha / 2) * (1 - pi) / ((alpha / 2) * (1 - pi) + power * pi)
+def fpr_from_prior(pi: float, alpha: float, power: float, false_win_rate: float | None = None) -> float:
+    """Kohavi, Deng & Vermeer (2022): FPR = f (1 - pi) / (f (1 - pi) + power pi), f = alpha/2 unless the rule's own
+    false-win rate is given."""
+    f = alpha / 2 if false_win_rate is None else false_win_rate
+    return f * (1 - pi) / (f * (1 - pi) + power * pi)
 
 
 def lee_shen_bias(true_effects: np.ndarray, ses: np.ndarray, z: float = 1.959963984540054) -> float:
@@ -344,10 +402,19 @@ def lee_shen_bias(true_effects: np.ndarray, ses: np.ndarray, z: float = 1.959963
     return float(np.sum(ses * stats.norm.pdf((ses * z - true_effects) / ses)))
 
 
+def rule_false_win_rate(effects: list[Effect], alpha: float, rules: VerdictRules | None = None) -> float:
+    """Mean over the comparisons of P(called a winner | no true effect) under the ship rule, each at its test's
+    number of comparisons (:func:`archive.analysis.verdict.null_ship_rates`)."""
+    r = rules or VerdictRules()
+    rates = {m: null_ship_rates(m, alpha, r)[1] for m in {e.control_share for e in effects}}
+    return float(np.mean([rates[e.control_share] for e in effects]))
+
+
 def _programme(used: list[Effect], groups: list[GroupResult], alpha: float, power: float) -> Programme:
     wins = sum(e.verdict == "winner" for e in used)
     rate = jeffreys(wins, len(used))
-    implied = false_positive_risk(rate.rate or 0.0, alpha, power) if used else None
+    f = rule_false_win_rate(used, alpha) if used else None
+    implied = false_positive_risk(rate.rate or 0.0, alpha, power, f) if used else None
     shrunk = {(m.record_id, m.arm): m.shrunk_lift for g in groups for m in g.members}
     shipped = [e for e in used if e.shipped]
     mean_obs = mean_shrunk = over = bias = summed = None
@@ -371,17 +438,26 @@ def _programme(used: list[Effect], groups: list[GroupResult], alpha: float, powe
         over,
         bias,
         summed,
+        f,
+        "the ship rule's rate of winners among comparisons without a true effect (Holm at alpha "
+        f"{alpha:g} within each test, positive side only; normal approximation, by the tests' numbers of arms)",
     )
 
 
-def _between(groups: list[GroupResult]) -> BetweenGroups | None:
-    """Test for subgroup differences: Cochran's Q across the groups' pooled estimates (random-effects SEs)."""
-    usable = [g for g in groups if g.comparisons >= 2]
+def _between(used: list[Effect], primary: list[int], names: list[str], method: str) -> BetweenGroups | None:
+    """Test for subgroup differences: Cochran's Q across the groups' pooled estimates (random-effects SEs), with
+    each comparison counted once, in its first group, so that the groups compared share no test."""
+    keep = [i for i, g in enumerate(primary) if g >= 0]
+    if not keep:
+        return None
+    y = np.array([used[i].log_rr for i in keep])
+    v = np.array([used[i].variance for i in keep])
+    index = np.array([primary[i] for i in keep])
+    once = pool_groups(y, v, index, len(names), method, hksj=False, prediction=False)  # type: ignore[arg-type]
+    usable = np.flatnonzero(once.k >= 2)
     if len(usable) < 2:
         return None
-    y = np.array([math.log1p(g.lift) for g in usable])
-    se = np.array([g.log_se_plain for g in usable])
-    het = heterogeneity(y, se**2)
+    het = heterogeneity(once.mean[usable], once.se[usable] ** 2)
     return BetweenGroups(het.q, het.df, het.p_value)
 
 

@@ -10,7 +10,8 @@ from archive.render.model import Memo, Section, Table
 
 def build_memo(a: Analysis, segments: SegmentAnalysis | None = None) -> Memo:
     rec = a.recommendation
-    lead = [f"Recommendation: {rec.explanation}."]
+    lead = [a.rule] if a.rule else []
+    lead.append(f"Recommendation: {rec.explanation}.")
     if rec.recorded_outcome is not None:
         recorded = rec.recorded_outcome + (f" {rec.recorded_arm}" if rec.recorded_arm else "")
         lead.append(
@@ -111,6 +112,7 @@ def _revenue_section(a: Analysis) -> Section:
             ]
         )
         bullets.append(f"{c.arm}: {r.note}.")
+        bullets.append(f"{c.arm}: guardrail {c.revenue_guardrail}: {c.revenue_check}.")
         if r.bootstrap is not None:
             b = r.bootstrap
             bullets.append(

@@ -55,7 +55,8 @@ def plan_memo(p: TestPlan) -> Memo:
     if p.false_positive_risk is not None and p.theme_success_rate is not None:
         bullets.append(
             f"the theme's implied true success rate {pct(p.theme_success_rate)} makes a winner a false positive "
-            f"with probability {pct(p.false_positive_risk)} (Kohavi, Deng & Vermeer 2022)"
+            f"with probability {pct(p.false_positive_risk)} (Kohavi, Deng & Vermeer 2022, with the ship rule's "
+            f"false-win rate {pct(p.false_win_rate, 2)} per comparison)"
         )
     bullets += [f"Warning: {w}." for w in p.warnings]
     sections = [Section("The odds", bullets=bullets)] if bullets else []
@@ -89,7 +90,10 @@ def informed_section(items: list[InformedLift], prior: LiftPrior) -> Section:
 
 def calibration_memo(c: Calibration) -> Memo:
     rows = []
-    for name, s in (("history prior", c.history), (f"flat prior (sd {c.flat_prior_sd:g})", c.flat)):
+    scores = [("history prior", c.history), (f"flat prior (sd {c.flat_prior_sd:g})", c.flat)]
+    if c.running is not None:
+        scores.append(("running win rate", c.running))
+    for name, s in scores:
         rows.append(
             [
                 name,
@@ -121,4 +125,29 @@ def calibration_memo(c: Calibration) -> Memo:
             if better
             else "History does not forecast better than a flat prior here."
         )
-    return Memo("Calibration of history priors", lead, [Section("Scores", tables=[table], bullets=c.notes)])
+    if c.history.brier is not None and c.running is not None and c.running.brier is not None:
+        lead.append(
+            "History also beats the running win rate."
+            if c.history.brier < c.running.brier
+            else "History does not beat the running win rate: it adds nothing beyond how often tests win."
+        )
+    bins = Table(
+        ["P(win) forecast", "comparisons", "mean forecast", "observed wins (Jeffreys 95%)"],
+        [
+            [
+                f"{pct(b.low, 0)}-{pct(b.high, 0)}",
+                str(b.forecasts),
+                pct(b.mean_forecast),
+                "n/a" if b.observed is None else f"{pct(b.observed)} {interval(b.observed_low, b.observed_high)}",
+            ]
+            for b in c.reliability
+        ],
+    )
+    return Memo(
+        "Calibration of history priors",
+        lead,
+        [
+            Section("Scores", tables=[table], bullets=c.notes),
+            Section("Reliability of the history prior's P(win)", tables=[bins]),
+        ],
+    )

@@ -15,7 +15,8 @@ def build_pool_memo(p: PoolResult) -> Memo:
         f"Observed win rate {pct(prog.win_rate.rate)} {interval_plain_rate(prog.win_rate)}"
         + (
             f"; implied true success rate {pct(prog.true_success_rate)} and false positive risk of a winner "
-            f"{pct(prog.false_positive_risk)} (Kohavi & Chen 2024, alpha {prog.alpha:g}, assumed power "
+            f"{pct(prog.false_positive_risk)} (Kohavi & Chen 2024, with the ship rule's false-win rate "
+            f"{pct(prog.false_win_rate, 2)} per comparison at alpha {prog.alpha:g}, assumed power "
             f"{prog.assumed_power:.0%})."
             if prog.false_positive_risk is not None
             else "."
@@ -36,7 +37,8 @@ def build_pool_memo(p: PoolResult) -> Memo:
             interval(g.prediction_low, g.prediction_high),
             f"{g.tau2:.5f}" + (f" [{g.tau2_low:.5f}, {g.tau2_high:.5f}]" if g.tau2_high is not None else ""),
             f"{g.i_squared:.0%}",
-            f"{g.wins.count}/{g.wins.total} {interval_plain_rate(g.wins)}; shrunk {pct(g.wins.shrunk)}",
+            f"{g.wins.count}/{g.wins.total} {interval_plain_rate(g.wins)}; hierarchical {pct(g.wins.shrunk)} "
+            f"[{pct(g.wins.shrunk_low, 0)}, {pct(g.wins.shrunk_high, 0)}]",
             f"{g.shipped.count}/{g.shipped.total}",
             f"{pct(g.dl_lift, 1, True)} {interval(g.dl_low, g.dl_high)}",
             g.warning or "",
@@ -57,6 +59,8 @@ def build_pool_memo(p: PoolResult) -> Memo:
     ]
     ranked = Section("What tends to win", tables=[Table(headers, rows)])
     checks = []
+    if p.win_rates:
+        checks.append(p.win_rates)
     if p.between_groups is not None:
         b = p.between_groups
         checks.append(f"Do the groups differ? Q between {b.q:.2f}, df {b.df}, p {pvalue(b.p_value)}.")
@@ -73,6 +77,8 @@ def build_pool_memo(p: PoolResult) -> Memo:
             checks.append(f"Warning: {e.warning}.")
     if p.excluded:
         checks.append(f"Left out after a failed trust check: {', '.join(p.excluded)}.")
+    if p.double_zero:
+        checks.append(f"Left out, no conversions in either arm: {', '.join(p.double_zero)}.")
     if p.split_controls:
         checks.append(f"Shared controls split evenly: {', '.join(p.split_controls)}.")
     sections = [ranked, Section("Across the archive", bullets=checks)]

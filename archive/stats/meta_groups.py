@@ -15,9 +15,9 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
+from scipy import special, stats
 
-from archive.stats.meta import ArrayLike, TauMethod, reml_grid
+from archive.stats.meta import HKSJ_FLOOR_LABEL, PREDICTION_POINTS, ArrayLike, TauMethod, reml_grid
 
 _MAX_ITERATIONS = 300
 _RELATIVE_TOLERANCE = 1e-13
@@ -39,7 +39,7 @@ class GroupPooling:
     low: np.ndarray
     high: np.ndarray
     p_value: np.ndarray
-    prediction_low: np.ndarray  # Higgins, Thompson & Spiegelhalter (2009); NaN for k < 3
+    prediction_low: np.ndarray  # tau^2 carried by its confidence distribution (see prediction_interval); NaN for k < 3
     prediction_high: np.ndarray
     q: np.ndarray  # Cochran's Q (fixed-effect weights)
     df: np.ndarray  # k - 1
@@ -48,7 +48,9 @@ class GroupPooling:
     fixed_mean: np.ndarray
     fixed_se: np.ndarray
     method: str
-    interval_kind: str  # "HKSJ (t, k-1 df); normal where k = 1" or "normal"
+    interval_kind: str  # "HKSJ ... (t, k-1 df); normal where k = 1" or "normal"
+    hts_low: np.ndarray | None = None  # Higgins, Thompson & Spiegelhalter (2009) with the plug-in tau^2; k < 3 NaN
+    hts_high: np.ndarray | None = None
 
     @property
     def n_groups(self) -> int:
@@ -187,13 +189,20 @@ class _Model:
 
 
 def _solve_q(
-    model: _Model, target: np.ndarray, q0: np.ndarray, active: np.ndarray, k_var_y: np.ndarray, atol: np.ndarray
+    model: _Model,
+    target: np.ndarray,
+    q0: np.ndarray,
+    active: np.ndarray,
+    k_var_y: np.ndarray,
+    atol: np.ndarray,
+    start: np.ndarray | None = None,
 ) -> np.ndarray:
     """tau^2 with generalised Q(tau^2) = target; 0 where Q(0) <= target.
 
     Q decreases in tau^2, so the root is unique. Upper bracket: Q(t) <= sum (y - ybar)^2 / t = k var(y) / t (the
     weighted mean minimises Q, every weight is <= 1/t), so Q < target at t = 2 k var(y) / target. Newton runs on
     1/target - 1/Q(t), which is close to linear in t where Q behaves like a / (b + t), so few steps are needed.
+    ``start`` (optional) is a known lower bound of the root per group, e.g. the root for a larger target.
     """
     solve = active & (q0 > target)
     hi = np.where(solve, 2 * k_var_y / target, 1.0)
@@ -202,7 +211,8 @@ def _solve_q(
         q, slope = model.generalised_q(t)
         return 1 / target - 1 / q, slope / (q * q)
 
-    root = _bracketed_newton(fn, np.zeros_like(hi), hi, solve, atol)
+    lo = np.zeros_like(hi) if start is None else np.where(solve, np.minimum(start, hi), 0.0)
+    root = _bracketed_newton(fn, lo, hi, solve, atol)
     return np.where(solve, root, 0.0)
 
 
@@ -257,22 +267,32 @@ def pool_groups(
     method: TauMethod = "REML",
     hksj: bool = True,
     confidence: float = 0.95,
+    hksj_floor: bool = True,
+    prediction: bool = True,
 ) -> GroupPooling:
     """Random-effects pooling of every group: ``effects[i]`` (variance ``variances[i]``) belongs to group
     ``group_index[i]`` in 0 .. n_groups - 1. Group by group the result equals
-    ``random_effects(effects[group_index == j], variances[group_index == j], method, hksj, confidence)``, with None
-    there as NaN here."""
+    ``random_effects(effects[group_index == j], variances[group_index == j], method, hksj, confidence, hksj_floor)``,
+    with None there as NaN here."""
     y, v, g, n = _validate(effects, variances, group_index, n_groups)
     if method not in ("DL", "PM", "REML"):
         raise ValueError(f"unknown tau^2 method {method!r}; use DL, PM or REML")
     if not 0 < confidence < 1:
         raise ValueError("confidence must lie strictly between 0 and 1")
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        return _pool(y, v, g, n, method, hksj, confidence)
+        return _pool(y, v, g, n, method, hksj, confidence, hksj_floor, prediction)
 
 
 def _pool(
-    y: np.ndarray, v: np.ndarray, g: np.ndarray, n: int, method: str, hksj: bool, confidence: float
+    y: np.ndarray,
+    v: np.ndarray,
+    g: np.ndarray,
+    n: int,
+    method: str,
+    hksj: bool,
+    confidence: float,
+    floor: bool,
+    prediction: bool = True,
 ) -> GroupPooling:
     if len(g) > 1 and not bool(np.all(g[1:] >= g[:-1])):
         # a stable sort of small integers is a radix sort in numpy: several times faster than on int64
@@ -312,7 +332,7 @@ def _pool(
         tau2 = _tau2_reml(model, multi, v_min, v_max, var_y, atol)
     tau2 = np.where(some, tau2, 0.0)
 
-    # random-effects mean; HKSJ: se * sqrt(q_hk), q_hk = sum w (y - mu)^2 / (k - 1) not truncated at 1, t with k-1 df
+    # random-effects mean; HKSJ: se * sqrt(q_hk), q_hk = sum w (y - mu)^2 / (k - 1) (floored at 1 by default), t, k-1 df
     w = 1 / (v + s.spread(tau2))
     sw = s.sum(w)
     mean = s.sum(w * y) / sw
@@ -321,6 +341,8 @@ def _pool(
     use_t = multi if hksj else np.zeros(n, dtype=bool)
     use_z = some & ~use_t
     q_hk = s.sum(w * (y - s.spread(mean)) ** 2) / df
+    if floor:
+        q_hk = np.maximum(1.0, q_hk)  # Knapp-Hartung modification: never narrower than the plain interval
     se = np.where(use_t, se_plain * np.sqrt(q_hk), se_plain)
     crit = nan.copy()
     crit[use_t] = _by_distinct(lambda d: stats.t.ppf(tail, d), df[use_t])
@@ -330,12 +352,14 @@ def _pool(
     p_value[use_t] = np.where(se[use_t] > 0, 2 * stats.t.sf(z[use_t], df[use_t]), 0.0)
     p_value[use_z] = 2 * stats.norm.sf(z[use_z])
 
-    # prediction interval: mean +/- t_{k-2} sqrt(tau2 + SE^2), with the plain (not HKSJ) SE
+    # Higgins-Thompson-Spiegelhalter: mean +/- t_{k-2} sqrt(tau2 + SE^2), with the plain (not HKSJ) SE
     three = k >= 3
     half = nan.copy()
     half[three] = _by_distinct(lambda d: stats.t.ppf(tail, d), k[three] - 2.0) * np.sqrt(
         tau2[three] + se_plain[three] ** 2
     )
+    wanted = three if prediction else np.zeros(n, dtype=bool)
+    pred_low, pred_high = _cd_prediction(model, q, df, wanted, k_var_y, atol, confidence)
 
     # Q-profile interval of tau^2: the generalised Q equal to the chi-square (k-1) quantiles
     upper_q, lower_q = nan.copy(), nan.copy()
@@ -357,8 +381,8 @@ def _pool(
         low=group_values(mean - crit * se),
         high=group_values(mean + crit * se),
         p_value=group_values(p_value),
-        prediction_low=group_values(mean - half, three),
-        prediction_high=group_values(mean + half, three),
+        prediction_low=group_values(pred_low, wanted),
+        prediction_high=group_values(pred_high, wanted),
         q=group_values(q),
         df=df,
         q_p_value=q_p_value,
@@ -366,5 +390,71 @@ def _pool(
         fixed_mean=group_values(fixed_mean),
         fixed_se=group_values(fixed_se),
         method=method,
-        interval_kind="HKSJ (t, k-1 df); normal where k = 1" if hksj else "normal",
+        interval_kind=_interval_kind(hksj, floor),
+        hts_low=group_values(mean - half, three),
+        hts_high=group_values(mean + half, three),
     )
+
+
+def _interval_kind(hksj: bool, floor: bool) -> str:
+    if not hksj:
+        return "normal"
+    return (HKSJ_FLOOR_LABEL if floor else "HKSJ (t, k-1 df)") + "; normal where k = 1"
+
+
+
+def _cd_prediction(
+    model: _Model,
+    q0: np.ndarray,
+    df: np.ndarray,
+    active: np.ndarray,
+    k_var_y: np.ndarray,
+    atol: np.ndarray,
+    confidence: float,
+) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`archive.stats.meta.cd_prediction_interval` for every group at once: the tau^2 of each slice of its
+    confidence distribution by the bracketed Newton solver (slices in order of growing tau^2, each started from
+    the last root), the mixture quantiles by Newton steps kept inside a shrinking bracket."""
+    n = len(df)
+    s = model.groups
+    u = (np.arange(PREDICTION_POINTS) + 0.5) / PREDICTION_POINTS
+    centres = np.zeros((n, PREDICTION_POINTS))
+    scales = np.ones((n, PREDICTION_POINTS))
+    if not active.any():
+        return np.full(n, np.nan), np.full(n, np.nan)
+    dfs = np.where(active, df, 1.0)
+    tau2 = np.zeros(n)
+    for j in range(PREDICTION_POINTS - 1, -1, -1):  # u falling: chi-square target falling, tau^2 growing
+        target = _by_distinct(lambda d, p=u[j]: stats.chi2.ppf(p, d), dfs)  # type: ignore[misc]
+        tau2 = _solve_q(model, target, q0, active, k_var_y, atol, start=tau2)
+        w = 1 / (model.v + s.spread(tau2))
+        sw = s.sum(w)
+        centres[:, j] = s.sum(w * model.y) / sw
+        scales[:, j] = np.sqrt(tau2 + 1 / sw)
+    centres = np.where(active[:, None], centres, 0.0)
+    scales = np.where(active[:, None] & (scales > 0), scales, 1.0)
+    tail = (1 - confidence) / 2
+    spread = np.sqrt(np.mean(scales**2, axis=1) + np.var(centres, axis=1))
+    middle = np.mean(centres, axis=1)
+    out = []
+    for target_p in (tail, 1 - tail):
+        lo = np.min(centres - 10 * scales, axis=1)
+        hi = np.max(centres + 10 * scales, axis=1)
+        x = middle + float(special.ndtri(target_p)) * spread
+        todo = active.copy()
+        for _ in range(100):
+            z = (x[:, None] - centres) / scales
+            cdf = np.mean(special.ndtr(z), axis=1) - target_p
+            density = np.mean(np.exp(-0.5 * z * z) / scales, axis=1) / np.sqrt(2 * np.pi)
+            lo = np.where(cdf < 0, x, lo)
+            hi = np.where(cdf > 0, x, hi)
+            step = np.where(density > 0, cdf / np.where(density > 0, density, 1.0), np.inf)
+            candidate = x - step
+            candidate = np.where((candidate > lo) & (candidate < hi), candidate, 0.5 * (lo + hi))
+            done = (np.abs(candidate - x) <= 1e-13 * (np.abs(x) + spread)) | (cdf == 0)
+            x = np.where(todo, candidate, x)
+            todo &= ~done
+            if not todo.any():
+                break
+        out.append(np.where(active, x, np.nan))
+    return out[0], out[1]

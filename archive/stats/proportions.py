@@ -76,6 +76,10 @@ def compare_rates(x_t: int, n_t: int, x_c: int, n_c: int, confidence: float = 0.
         lift = math.exp(log_rr) - 1 if not corrected else p_t / p_c - 1 if p_c > 0 else None
         low = math.exp(log_rr - z_crit * se_log) - 1
         high = math.exp(log_rr + z_crit * se_log) - 1
+        if corrected and lift is not None:
+            # the 0.5-corrected interval is centred on the corrected ratio; the observed lift (-100% for no
+            # conversions in the treatment) must still lie inside its own interval
+            low, high = min(low, lift), max(high, lift)
     return RateComparison(
         rate_control=p_c,
         rate_treatment=p_t,
