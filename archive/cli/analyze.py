@@ -60,9 +60,10 @@ def analyze(
     from archive.render.analysis import build_memo
     from archive.render.markdown import render_markdown
     from archive.render.terminal import render_terminal
+
     with user_errors():
         path = _record_path(record_id, file, records)
-        loaded, problems = load_record(path)
+        loaded, problems = load_record(path, expect_stem=file is None)
         if loaded is None or errors(problems):
             print_problems(problems)
             err.print(f"{path} has errors; fix them (see `archive check`) before analysing.", markup=False)

@@ -41,6 +41,7 @@ def pool(
     from archive.render.markdown import render_markdown
     from archive.render.pooling import build_pool_memo
     from archive.render.terminal import render_terminal
+
     with user_errors():
         grouping, segment = (by, None)
         if by.startswith("segment:"):

@@ -192,7 +192,12 @@ def _insert(conn: Any, loaded: list[LoadedRecord], raw_by_name: dict[str, bytes]
                         }
                     )
         search.append(
-            {"record_id": r.id, "title": r.title, "hypothesis": r.hypothesis, "learnings_text": "\n".join(r.learnings)}
+            {
+                "record_id": r.id,
+                "title": r.title,
+                "hypothesis": r.hypothesis_text(),
+                "learnings_text": "\n".join(r.learnings),
+            }
         )
     for table, rows in (
         (RECORD, records),
@@ -217,6 +222,7 @@ def _record_row(r: Record, path: str, content_hash: str) -> dict[str, Any]:
     core = {name: getattr(r, name) for name in RecordCore.model_fields}
     return {
         **core,
+        "hypothesis": r.hypothesis_text(),
         "path": path,
         "content_hash": content_hash,
         "orders_file": r.orders_file,
