@@ -18,8 +18,8 @@ from tests.conftest import good_text
 
 runner = CliRunner()
 OLD = """hypothesis: >-
-  Because visitors abandon baskets just below the free delivery threshold, we believe showing how much is
-  missing will raise conversion.
+  Showing how much is missing for free delivery should raise conversion, since visitors abandon baskets just
+  below the free delivery threshold.
 """
 PARTS = """hypothesis:
   change: a bar showing the amount missing for free delivery
@@ -52,7 +52,7 @@ def test_a_plain_sentence_stays_valid(tmp_path: Path) -> None:
     path.write_text(good_text())
     loaded, problems = load_record(path)
     assert loaded is not None and problems == []
-    assert loaded.record.hypothesis_text().startswith("Because visitors abandon baskets just below")
+    assert loaded.record.hypothesis_text().startswith("Showing how much is missing for free")
 
 
 def test_audience_may_be_left_out() -> None:
