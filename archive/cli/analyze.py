@@ -12,6 +12,7 @@ from typing import Annotated
 import typer
 
 from archive.cli.common import RecordsOption, err, out, print_problems, user_errors
+from archive.cli.values import share_option
 
 
 class Adjust(StrEnum):
@@ -35,7 +36,12 @@ def analyze(
         Path | None, typer.Option("--plot", help="Write the posterior lift plot here (.svg or .png).")
     ] = None,
     margin: Annotated[
-        float | None, typer.Option(help="Equivalence margin on relative lift (default: the plan's minimum_lift).")
+        float | None,
+        typer.Option(
+            parser=share_option,
+            metavar="SHARE",
+            help="Equivalence margin on relative lift, 5% or 0.05 (default: the plan's minimum_lift).",
+        ),
     ] = None,
     srm_alpha: Annotated[float, typer.Option(help="Sample ratio mismatch alarm threshold.")] = 0.001,
     replicates: Annotated[int, typer.Option(help="Bootstrap replicates for order-level revenue.")] = 1000,

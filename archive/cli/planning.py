@@ -12,6 +12,7 @@ import typer
 
 from archive.cli.analyze import MemoFormat
 from archive.cli.common import RecordsOption, err, out, user_errors
+from archive.cli.values import share_option
 
 
 def prior(
@@ -54,7 +55,10 @@ def prior(
 
 
 def plan(
-    minimum_lift: Annotated[float, typer.Option(help="Smallest relative lift that matters, e.g. 0.05.")],
+    minimum_lift: Annotated[
+        float,
+        typer.Option(parser=share_option, metavar="SHARE", help="Smallest relative lift that matters: 5% or 0.05."),
+    ],
     baseline: Annotated[float | None, typer.Option(help="Control conversion rate (default: the page area's).")] = None,
     page_area: Annotated[str | None, typer.Option(help="Page area (for the baseline and the prior).")] = None,
     theme: Annotated[str | None, typer.Option(help="Theme: plan with the history prior of this theme.")] = None,
