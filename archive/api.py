@@ -404,7 +404,7 @@ class Archive:
 
         if not path.is_file():
             raise FileNotFoundError(f"{path} not found")
-        loaded, problems = load_record(path)
+        loaded, problems = load_record(path, expect_stem=False)
         blocking = errors(problems)
         if loaded is None or blocking:
             raise ArchiveInvalid(blocking or problems)

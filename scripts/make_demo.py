@@ -816,11 +816,8 @@ WHO = {
     "basket": ["visitors with a full basket", "first-time buyers"],
     "checkout": ["first-time buyers", "mobile shoppers"],
 }
-HYPOTHESES = [
-    "Because we saw {saw}, we believe {change} will {goal}.",
-    "Because we saw {saw}, we believe {change} will {goal} for {who}.",
-    "Because we saw {saw}, we believe that {change} will {goal}, above all for {who}.",
-]
+#: how often a hypothesis names its audience: one draw in three leaves it out (every visitor)
+HYPOTHESIS_FORMS = ["every visitor", "audience", "audience"]
 CONTROL_TEXT = ["{now}", "As live today. {now}", "Current version. {now}"]
 WEEKDAYS = ["Mondays", "Tuesdays", "Wednesdays", "Thursdays", "Fridays", "Saturdays", "Sundays"]
 
@@ -1375,7 +1372,8 @@ def learnings(t: Test, txt: np.random.Generator) -> list[str]:
     return out[:3]
 
 
-def hypothesis(t: Test, txt: np.random.Generator) -> str:
+def hypothesis(t: Test, txt: np.random.Generator) -> dict[str, str]:
+    """The four parts of a hypothesis: what changes, for whom, the effect expected, what was observed."""
     idea = t.idea
     goal = pick(txt, GOALS[idea["theme"]])
     who = pick(txt, WHO[idea["area"]])
@@ -1387,8 +1385,10 @@ def hypothesis(t: Test, txt: np.random.Generator) -> str:
         if idea["followup"]["kind"] == "rerun":
             reason = "an uneven split of visitors" if p.idea.get("special") == "srm-rerun" else "uneven device mixes"
             saw = f"that {p.id} could not be read because of {reason}"
-        return f"Because we saw {saw}, we believe {idea['followup']['change']} will {goal}."
-    return pick(txt, HYPOTHESES).format(saw=idea["saw"], change=idea["change"], goal=goal, who=who)
+        return {"change": idea["followup"]["change"], "expected": goal, "observed": saw}
+    form = pick(txt, HYPOTHESIS_FORMS)
+    audience = {} if form == "every visitor" else {"audience": who}
+    return {"change": idea["change"], **audience, "expected": goal, "observed": idea["saw"]}
 
 
 # --- records --------------------------------------------------------------------------------------------

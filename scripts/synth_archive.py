@@ -239,16 +239,21 @@ class _Generator:
         out.append("themes:\n" + "".join(f"  - {t}\n" for t in themes))
         out.append("tags:\n" + "".join(f"  - {t}\n" for t in tags))
         evidence = choice(EVIDENCE).format(what=what, area=area_text)
-        hypothesis = (
-            f"Because we saw {evidence}, we believe that for {choice(AUDIENCES)} a variant that {change_text} "
-            f"will raise the share of visitors who order. We expect most of the effect on {choice(DEVICES)}, where "
-            f"{what} are hardest to find on the current {area_text}. Visitors there convert at about "
-            f"{baseline * 100:.1f}%; the smallest lift worth shipping is {min_lift * 100:.0f}% relative, and "
-            "average order value should not fall."
+        audience, device = choice(AUDIENCES), choice(DEVICES)
+        observed = (
+            f"{evidence}; visitors there convert at about {baseline * 100:.1f}% and the smallest lift worth "
+            f"shipping is {min_lift * 100:.0f}% relative"
         )
         if parent:
-            hypothesis += f" This round follows {parent}, whose result was promising but not settled."
-        out.append("hypothesis: >-\n" + _wrap(hypothesis, "  ") + "\n")
+            observed += f"; this round follows {parent}, whose result was promising but not settled"
+        parts = {
+            "change": f"a variant that {change_text}",
+            **({} if audience == "all visitors" else {"audience": audience}),
+            "expected": f"raise the share of visitors who order, most of all on {device}, where {what} are hardest "
+            f"to find on the current {area_text}, without lowering the average order value",
+            "observed": observed,
+        }
+        out.append("hypothesis:\n" + "".join(f"  {k}: >-\n{_wrap(v, '    ')}\n" for k, v in parts.items()))
         out.append(
             "plan:\n"
             f"  baseline_rate: {baseline}\n"

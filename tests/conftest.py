@@ -28,8 +28,8 @@ themes:
   - social-proof
 tags: [delivery, spring-2024]
 hypothesis: >-
-  Because visitors abandon baskets just below the free delivery threshold, we believe showing how much is
-  missing will raise conversion.
+  Showing how much is missing for free delivery should raise conversion, since visitors abandon baskets just
+  below the free delivery threshold.
 plan:
   baseline_rate: 0.031
   minimum_lift: 0.08

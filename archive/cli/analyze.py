@@ -12,6 +12,7 @@ from typing import TYPE_CHECKING, Annotated, Any
 import typer
 
 from archive.cli.common import DbOption, NoSyncOption, RecordsOption, err, open_archive, out, ready, user_errors
+from archive.cli.values import share_option
 from archive.render.markdown import render_markdown
 from archive.render.terminal import render_terminal
 
@@ -41,7 +42,12 @@ def analyze(
         Path | None, typer.Option("--plot", help="Write the posterior lift plot here (.svg or .png).")
     ] = None,
     margin: Annotated[
-        float | None, typer.Option(help="Equivalence margin on relative lift (default: the plan's minimum_lift).")
+        float | None,
+        typer.Option(
+            parser=share_option,
+            metavar="SHARE",
+            help="Equivalence margin on relative lift, 5% or 0.05 (default: the plan's minimum_lift).",
+        ),
     ] = None,
     srm_alpha: Annotated[
         float | None, typer.Option(help="Sample ratio mismatch alarm threshold (default 0.001).")

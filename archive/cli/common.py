@@ -3,11 +3,7 @@
 from __future__ import annotations
 
 import contextlib
-import csv
-import datetime as dt
-import json
 import os
-import sys
 from collections.abc import Iterator, Sequence
 from enum import StrEnum
 from pathlib import Path
@@ -133,34 +129,11 @@ def database_message(exc: Exception) -> str:
     return f"the store{where} is not as expected ({type(cause).__name__}: {first}); run `archive index` to rebuild it"
 
 
-def _plain(value: Any) -> Any:
-    if isinstance(value, dt.date):
-        return value.isoformat()
-    if isinstance(value, list | tuple):
-        return " ".join(map(str, value))
-    return value
-
-
 def emit_rows(rows: list[dict[str, Any]], columns: Sequence[str], fmt: Format, title: str = "") -> None:
-    """Rows as a rich table, JSON (a list of objects) or CSV."""
-    if fmt is Format.json:
-        sys.stdout.write(json.dumps(rows, indent=2, default=str, ensure_ascii=False) + "\n")
-        return
-    if fmt is Format.csv:
-        writer = csv.writer(sys.stdout, lineterminator="\n")
-        writer.writerow(columns)
-        for row in rows:
-            writer.writerow([_plain(row.get(c)) for c in columns])
-        return
-    from rich.table import Table
-    from rich.text import Text
+    """Rows as a table fitted to the terminal (tab-separated when piped), JSON or CSV: see archive.render.tables."""
+    from archive.render.tables import emit_rows as emit
 
-    table = Table(title=Text(title) if title else None, show_lines=False, header_style="bold")
-    for column in columns:
-        table.add_column(column.replace("_", " "), overflow="fold")
-    for row in rows:  # Text: record text is never read as markup
-        table.add_row(*(Text("" if row.get(c) is None else str(_plain(row.get(c)))) for c in columns))
-    out.print(table)
+    emit(rows, columns, fmt, title, console=out)
 
 
 def show_progress() -> bool:

@@ -11,6 +11,7 @@ import typer
 
 from archive.cli.analyze import MemoFormat
 from archive.cli.common import DbOption, NoSyncOption, RecordsOption, err, open_archive, out, ready, user_errors
+from archive.cli.values import share_option
 from archive.render.markdown import render_markdown
 from archive.render.terminal import render_terminal
 
@@ -59,7 +60,10 @@ def prior(
 
 
 def plan(
-    minimum_lift: Annotated[float, typer.Option(help="Smallest relative lift that matters, e.g. 0.05.")],
+    minimum_lift: Annotated[
+        float,
+        typer.Option(parser=share_option, metavar="SHARE", help="Smallest relative lift that matters: 5% or 0.05."),
+    ],
     baseline: Annotated[float | None, typer.Option(help="Control conversion rate (default: the page area's).")] = None,
     page_area: Annotated[str | None, typer.Option(help="Page area (for the baseline and the prior).")] = None,
     theme: Annotated[str | None, typer.Option(help="Theme: plan with the history prior of this theme.")] = None,
@@ -81,8 +85,6 @@ def plan(
     from archive.render.planning import plan_memo
 
     with user_errors():
-        if minimum_lift >= 1:
-            raise ValueError(f"--minimum-lift is a share: write 0.05 for +5% (got {minimum_lift:g})")
         weights = [float(w) for w in split.split(",")] if split else None
         needs_history = bool(theme) or baseline is None or write is not None
         archive = open_archive(records, db, no_sync) if needs_history else None

@@ -37,8 +37,9 @@ class Summary:
 class RecordChecks:
     """The checks that need a whole, well-typed record."""
 
-    def __init__(self, path: Path, doc: YamlDocument, record: Record):
+    def __init__(self, path: Path, doc: YamlDocument, record: Record, expect_stem: bool = True):
         self.path, self.doc, self.r = path, doc, record
+        self.expect_stem = expect_stem  # False: a draft in any file, where another name is only a warning
         self.problems: list[Problem] = []
         self.orders: Orders | None = None
 
@@ -64,7 +65,11 @@ class RecordChecks:
         if not is_slug(r.id):
             self.add(("id",), f"{r.id!r} is not a safe id: use lowercase letters, digits and single hyphens")
         elif r.id != self.path.stem:
-            self.add(("id",), f"id {r.id!r} does not match the file name {self.path.name!r}; rename one")
+            self.add(
+                ("id",),
+                f"id {r.id!r} does not match the file name {self.path.name!r}; rename one",
+                "error" if self.expect_stem else "warning",
+            )
         if r.iterates_on is not None and r.iterates_on == r.id:
             self.add(("iterates_on",), "a test cannot iterate on itself")
 

@@ -8,10 +8,26 @@ from typing import Any
 
 from pydantic import BaseModel
 
-from archive.records.model import Arm, Decision, Link, Plan, PlanPrior, Record, SegmentCounts
+from archive.records.model import (
+    Arm,
+    Decision,
+    Hypothesis,
+    HypothesisField,
+    Link,
+    Plan,
+    PlanPrior,
+    Record,
+    SegmentCounts,
+)
 
 SECTIONS: tuple[tuple[str, type[BaseModel], str], ...] = (
     ("Record", Record, "The top level of `records/<id>.yaml`."),
+    (
+        "hypothesis",
+        Hypothesis,
+        "Under `hypothesis:` when it is written in parts; shown as one sentence: "
+        "`<change> for <audience> should <expected>. Observed <observed>.`",
+    ),
     ("plan", Plan, "Under `plan:`."),
     ("plan.prior", PlanPrior, "Under `plan: prior:` (written by `archive plan --write`)."),
     ("arms[]", Arm, "Each item under `arms:`."),
@@ -22,6 +38,8 @@ SECTIONS: tuple[tuple[str, type[BaseModel], str], ...] = (
 
 
 def _type_name(annotation: Any) -> str:
+    if annotation == typing.get_args(HypothesisField)[0]:
+        return "str or the parts below"
     text = str(annotation) if typing.get_origin(annotation) or not isinstance(annotation, type) else annotation.__name__
     text = re.sub(r"\b(?:typing|datetime|archive\.records\.model)\.", "", text)
     text = text.replace("NoneType", "null").replace("None", "null").replace("Literal", "one of ")

@@ -19,7 +19,7 @@ from typing import Any
 from pydantic import BaseModel, ValidationError
 
 from archive.records.checks import RecordChecks, Summary, archive_problems
-from archive.records.model import Record
+from archive.records.model import HYPOTHESIS_FORMS, Record
 from archive.records.orders import Orders, orders_path
 from archive.records.problems import Problem
 from archive.records.yamlsource import YamlDocument, YamlProblem, dotted, parse_yaml, read_yaml
@@ -56,8 +56,11 @@ def record_files(records_dir: Path) -> list[Path]:
     return sorted(found, key=lambda p: os.path.normcase(p.name))
 
 
-def load_record(path: Path, raw: bytes | None = None) -> tuple[LoadedRecord | None, list[Problem]]:
-    """Parse and check one record file. Returns the record (None if it cannot be built) and its problems."""
+def load_record(
+    path: Path, raw: bytes | None = None, expect_stem: bool = True
+) -> tuple[LoadedRecord | None, list[Problem]]:
+    """Parse and check one record file. Returns the record (None if it cannot be built) and its problems.
+    ``expect_stem=False`` (a draft read from any file) makes an id that differs from the file name a warning."""
     where = str(path)
     try:
         doc = parse_yaml(where, path.read_bytes() if raw is None else raw)
@@ -67,13 +70,13 @@ def load_record(path: Path, raw: bytes | None = None) -> tuple[LoadedRecord | No
         record = Record.model_validate(doc.data)
     except ValidationError as exc:
         return None, [_from_pydantic(doc, err) for err in exc.errors(include_url=False)]
-    checks = RecordChecks(path, doc, record)
+    checks = RecordChecks(path, doc, record, expect_stem)
     problems = checks.run()
     return LoadedRecord(where, record, doc, checks.orders), problems
 
 
 def _from_pydantic(doc: YamlDocument, err: Any) -> Problem:
-    loc: tuple[Hashable, ...] = tuple(err["loc"])
+    loc: tuple[Hashable, ...] = tuple(p for i, p in enumerate(err["loc"]) if not _is_form_tag(err["loc"], i))
     kind = err["type"]
     if kind == "extra_forbidden":
         known = _fields_at(loc[:-1])
@@ -92,6 +95,11 @@ def _from_pydantic(doc: YamlDocument, err: Any) -> Problem:
         if kind == "date_type" and isinstance(err.get("input"), str):
             message = f"expected a date written YYYY-MM-DD without quotes (got {shown})"
     return Problem(doc.path, doc.line_of(loc), dotted(loc), message)
+
+
+def _is_form_tag(loc: Sequence[Hashable], i: int) -> bool:
+    """True for the tag pydantic puts after ``hypothesis`` to say which of its forms was tried."""
+    return i == 1 and loc[0] == "hypothesis" and loc[1] in HYPOTHESIS_FORMS
 
 
 def _fields_at(loc: Sequence[Hashable]) -> list[str]:

@@ -12,9 +12,9 @@ import datetime as dt
 import json
 import re
 import unicodedata
-from typing import Any, Literal, get_args
+from typing import Annotated, Any, Literal, get_args
 
-from pydantic import ConfigDict
+from pydantic import ConfigDict, Discriminator, StringConstraints, Tag
 from sqlalchemy import String
 from sqlmodel import Field, SQLModel
 
@@ -41,6 +41,54 @@ STATUSES: tuple[str, ...] = get_args(Status)
 OUTCOMES: tuple[str, ...] = get_args(Outcome)
 
 
+class Hypothesis(SQLModel):
+    """A hypothesis in four short parts; shown everywhere as one sentence (:meth:`sentence`)."""
+
+    model_config = _STRICT  # type: ignore[assignment]
+
+    change: str = Field(
+        min_length=1, description="What the test changes, e.g. 'lowering the free delivery threshold to 50 EUR'."
+    )
+    audience: str = Field(
+        default="", description="For whom, e.g. 'first-time buyers'; leave out when it is every visitor."
+    )
+    expected: str = Field(
+        min_length=1,
+        description="The effect expected, as it reads after 'should', e.g. 'raise the share of visits that end "
+        "in an order'.",
+    )
+    observed: str = Field(
+        min_length=1,
+        description="What was observed that led to the test, as it reads after 'Observed', e.g. 'that a third of "
+        "baskets sit just under the threshold'.",
+    )
+
+    def sentence(self) -> str:
+        """'<Change> for <audience> should <expected>. Observed <observed>.'"""
+
+        def part(text: str) -> str:
+            return " ".join(text.split()).rstrip(".")
+
+        change = part(self.change)
+        who = f" for {part(self.audience)}" if self.audience.strip() else ""
+        return f"{change[:1].upper()}{change[1:]}{who} should {part(self.expected)}. Observed {part(self.observed)}."
+
+    def __str__(self) -> str:
+        return self.sentence()
+
+
+def _hypothesis_form(value: Any) -> str:
+    return "parts" if isinstance(value, dict | Hypothesis) else "text"
+
+
+#: tags of the two forms of a hypothesis; they are not part of a field's name in messages
+HYPOTHESIS_FORMS = ("text", "parts")
+HypothesisField = Annotated[
+    Annotated[Annotated[str, StringConstraints(min_length=1)], Tag("text")] | Annotated[Hypothesis, Tag("parts")],
+    Discriminator(_hypothesis_form),
+]
+
+
 class RecordCore(SQLModel):
     """The single-valued fields of a record (also the columns of the index's record table)."""
 
@@ -59,8 +107,10 @@ class RecordCore(SQLModel):
     page_area: str = Field(
         description="Where in the shop the change lives, e.g. product-page, checkout, basket.", min_length=1
     )
-    hypothesis: str = Field(
-        description="Because we saw X, we believe changing Y for Z will increase conversion.", min_length=1
+    hypothesis: HypothesisField = Field(
+        description="What the test changes, for whom, the effect expected and what was observed that led to it: "
+        "the parts under `hypothesis` (see below), or one free sentence (older records).",
+        sa_type=String,
     )
     iterates_on: str | None = Field(default=None, description="Id of the earlier test this one is a new round of.")
 
@@ -189,6 +239,11 @@ class Record(RecordCore):
     decision: Decision | None = Field(default=None, description="The decision actually taken.")
     learnings: list[str] = Field(default_factory=list, description="What the team learned, one point per item.")
     links: list[Link] = Field(default_factory=list, description="Designs, dashboards, tickets.")
+
+    def hypothesis_text(self) -> str:
+        """The hypothesis as one sentence, as shown, searched and indexed."""
+        h = self.hypothesis
+        return h.sentence() if isinstance(h, Hypothesis) else " ".join(h.split())
 
     def control_arm(self) -> Arm:
         return next(arm for arm in self.arms if arm.control)

@@ -1,15 +1,16 @@
-"""Starting a record: a commented YAML skeleton, optionally filled from a CSV of per-arm results.
+"""Starting a record: a commented YAML skeleton, optionally filled from a CSV of per-arm results and an order-level
+export.
 
-The CSV has one row per arm and the columns ``arm, visitors, conversions, revenue`` (``orders``,
-``revenue_sum_of_squares`` and ``description`` may follow). The generated text is parsed and validated before it
-is returned, so a scaffold is always a loadable record.
+The results CSV has one row per arm and the columns ``arm, visitors, conversions`` (``revenue``, ``orders``,
+``revenue_sum_of_squares`` and ``description`` may follow); an order-level export (``arm``, ``order_id`` or
+``visitor_id``, ``value``) gives orders, revenue and the revenue sum of squares per arm. Both may be comma, semicolon
+or tab separated, with a decimal point or comma (see :mod:`archive.records.exports`). The generated text is parsed
+and validated before it is returned, so a scaffold is always a loadable record.
 """
 
 from __future__ import annotations
 
-import csv
 import datetime as dt
-import io
 import json
 import math
 from dataclasses import dataclass, field
@@ -17,19 +18,24 @@ from pathlib import Path
 
 from pydantic import ValidationError
 
+from archive.records.exports import ExportError, OrderExport, read_sheet
 from archive.records.model import STATUSES, Arm, Record, canonical_label, is_slug
 from archive.records.problems import Problem
 from archive.records.yamlsource import parse_yaml
 
-RESULT_COLUMNS = ("arm", "visitors", "conversions", "revenue")
-PLACEHOLDER_HYPOTHESIS = "Because we saw <evidence>, we believe <change> for <visitors> will raise conversion."
-_OPTIONAL = {"orders": int, "revenue_sum_of_squares": float, "description": str}
+RESULT_COLUMNS = ("arm", "visitors", "conversions")
+#: what the template writes under ``hypothesis:`` for the parts not given (text in angle brackets)
+PLACEHOLDER_PARTS = {
+    "change": "<what the test changes, e.g. lowering the free delivery threshold>",
+    "audience": "<for whom, e.g. first-time buyers; delete the line when it is every visitor>",
+    "expected": "<the effect expected, as it reads after 'should', e.g. raise the share of visits ending in orders>",
+    "observed": "<what was observed that led to the test, e.g. that a third of baskets sit just under the threshold>",
+}
+#: number columns of a results CSV and whether each holds whole numbers
+_NUMBERS = {"visitors": True, "conversions": True, "orders": True, "revenue": False, "revenue_sum_of_squares": False}
 
 
-class ScaffoldError(ValueError):
-    def __init__(self, problems: list[Problem]):
-        super().__init__("\n".join(str(p) for p in problems))
-        self.problems = problems
+ScaffoldError = ExportError
 
 
 @dataclass
@@ -43,8 +49,9 @@ class Draft:
     owner: str | None = None
     started: dt.date | None = None
     ended: dt.date | None = None
-    hypothesis: str = ""
+    hypothesis: str | dict[str, str] = ""  # one sentence, or parts (see hypothesis_parts)
     plan: dict[str, object] | None = None  # filled plan values (from `archive plan --write`)
+    orders_file: str | None = None  # an orders file next to the record
 
 
 def arms_from_names(names: list[str], control: str | None = None) -> list[Arm]:
@@ -55,52 +62,84 @@ def arms_from_names(names: list[str], control: str | None = None) -> list[Arm]:
 
 
 def arms_from_csv(path: Path, control: str | None = None) -> list[Arm]:
-    """Per-arm results from a CSV; problems name the CSV line and column."""
-    where = str(path)
-    try:
-        text = path.read_bytes().decode("utf-8-sig")
-    except (OSError, UnicodeDecodeError) as exc:
-        raise ScaffoldError([Problem(where, 0, "", f"cannot read the results CSV: {exc}")]) from None
-    reader = csv.DictReader(io.StringIO(text))
-    header = [c.strip() for c in reader.fieldnames or []]
-    missing = [c for c in RESULT_COLUMNS if c not in header]
-    if missing:
-        raise ScaffoldError([Problem(where, 1, "", f"missing columns {', '.join(missing)}; need {RESULT_COLUMNS}")])
+    """Per-arm results from a CSV (comma, semicolon or tab separated; decimal point or comma); problems name the
+    CSV line and column."""
+    sheet = read_sheet(path, "results CSV", RESULT_COLUMNS, tuple(_NUMBERS))
     problems: list[Problem] = []
-    rows: list[dict[str, object]] = []
-    for line, raw in enumerate(reader, start=2):
-        row = {(k or "").strip(): (v or "").strip() for k, v in raw.items()}
+    rows: list[tuple[int, dict[str, object]]] = []
+    for line, row in sheet.rows:
         values: dict[str, object] = {"name": row["arm"], "description": row.get("description", "")}
-        for column, kind in (("visitors", int), ("conversions", int), ("revenue", float), *_OPTIONAL.items()):
-            if column == "description" or column not in row or row[column] == "":
+        for column, whole in _NUMBERS.items():
+            if row.get(column, "") == "":
                 continue
             try:
-                number = kind(row[column])
-                if isinstance(number, float) and not math.isfinite(number):
-                    raise ValueError
-                values[column] = number
-            except ValueError:
-                kind_name = "a whole number" if kind is int else "a number"
-                problems.append(Problem(where, line, column, f"{row[column]!r} is not {kind_name}"))
-        rows.append(values)
+                values[column] = sheet.number(line, column, row[column], whole)
+            except ScaffoldError as exc:
+                problems += exc.problems
+        rows.append((line, values))
     if not rows and not problems:
-        problems.append(Problem(where, 2, "", "no arms in the CSV"))
+        problems.append(Problem(sheet.path, 2, "", "no arms in the CSV"))
     if problems:
         raise ScaffoldError(problems)
-    names = [str(r["name"]) for r in rows]
+    return _arms(sheet.path, rows, control)
+
+
+def _arms(where: str, rows: list[tuple[int, dict[str, object]]], control: str | None) -> list[Arm]:
+    names = [str(r["name"]) for _, r in rows]
     chosen = control or ("control" if "control" in names else names[0])
     if chosen not in names:
-        raise ScaffoldError([Problem(where, 0, "arm", f"control arm {chosen!r} is not in the CSV")])
-    arms = []
-    for line, values in enumerate(rows, start=2):
+        raise ScaffoldError(
+            [Problem(where, 0, "arm", f"control arm {chosen!r} is not among the arms {', '.join(names)}")]
+        )
+    arms, problems = [], []
+    for line, values in rows:
         try:
             arms.append(Arm.model_validate({**values, "control": values["name"] == chosen}, strict=False))
         except ValidationError as exc:
             err = exc.errors()[0]
-            problems.append(Problem(where, line, str(err["loc"][0]), err["msg"]))
+            problems.append(Problem(where, line, ".".join(map(str, err["loc"])), err["msg"]))
     if problems:
         raise ScaffoldError(problems)
     return arms
+
+
+def arms_with_orders(arms: list[Arm] | None, export: OrderExport, control: str | None = None) -> list[Arm]:
+    """Fill orders, revenue and revenue sum of squares of each arm from an order-level export (and converting
+    visitors, when the export has visitor ids and the results do not give them). Without ``arms`` the arms are
+    the export's, in order of first appearance."""
+    if arms is None:
+        names = list(dict.fromkeys(arm for arm, _, _ in export.rows))
+        arms = _arms(export.path, [(0, {"name": n}) for n in names], control)
+    known = {a.name for a in arms}
+    problems = [
+        Problem(export.path, 0, "arm", f"arm {name!r} of the orders export is not among the arms {', '.join(known)}")
+        for name in export.totals
+        if name not in known
+    ]
+    filled = []
+    for arm in arms:
+        t = export.totals.get(arm.name)
+        update: dict[str, object] = {
+            "orders": t.orders if t else 0,
+            "revenue": t.revenue if t else 0.0,
+            "revenue_sum_of_squares": t.revenue_sum_of_squares if t else 0.0,
+        }
+        if arm.revenue is not None and not math.isclose(arm.revenue, float(update["revenue"]), abs_tol=0.01):  # type: ignore[arg-type]
+            problems.append(
+                Problem(
+                    export.path,
+                    0,
+                    "value",
+                    f"arm {arm.name!r}: the orders add up to {update['revenue']} but the results give revenue "
+                    f"{arm.revenue}; give one of the two or make them agree",
+                )
+            )
+        if arm.conversions is None and t is not None and t.buyers is not None:
+            update["conversions"] = t.buyers
+        filled.append(arm.model_copy(update=update))
+    if problems:
+        raise ScaffoldError(problems)
+    return filled
 
 
 def _q(text: str) -> str:
@@ -138,8 +177,7 @@ def render(draft: Draft) -> str:
         "themes:  # what kind of change this is; reuse the spellings already in the archive",
         *[f"  - {canonical_label(t)}" for t in draft.themes],
         "tags: []",
-        "hypothesis: >-",
-        f"  {draft.hypothesis or PLACEHOLDER_HYPOTHESIS}",
+        *_hypothesis_lines(draft.hypothesis),
         "",
         *_plan_lines(draft, arms),
         "",
@@ -162,7 +200,9 @@ def render(draft: Draft) -> str:
         ]
     out += [
         "",
-        "# orders_file: orders.csv   # optional, next to this file: arm,order_id,value per order",
+        f"orders_file: {_q(draft.orders_file)}  # next to this file: arm,order_id (or visitor_id),value per order"
+        if draft.orders_file
+        else "# orders_file: orders.csv   # optional, next to this file: arm,order_id,value per order",
         "# segments:                 # optional: dimension -> value -> arm -> visitors, conversions, revenue",
         "#   device:",
         "#     mobile:",
@@ -180,6 +220,33 @@ def render(draft: Draft) -> str:
     text = "\n".join(out)
     _self_check(text, draft)
     return text
+
+
+def hypothesis_parts(
+    text: str = "", observed: str = "", change: str = "", audience: str = "", expected: str = ""
+) -> str | dict[str, str]:
+    """The hypothesis of a draft: one sentence, or the parts given (the others left as placeholders)."""
+    given = {"change": change, "audience": audience, "expected": expected, "observed": observed}
+    given = {k: " ".join(v.split()) for k, v in given.items() if v.strip()}
+    if text.strip() and given:
+        raise ScaffoldError(
+            [Problem("--hypothesis", 0, "hypothesis", "give the hypothesis as one sentence or in parts, not both")]
+        )
+    if text.strip():
+        return " ".join(text.split())
+    if not given:
+        return dict(PLACEHOLDER_PARTS)
+    return {k: given.get(k, PLACEHOLDER_PARTS[k]) for k in PLACEHOLDER_PARTS if k in given or k != "audience"}
+
+
+def _hypothesis_lines(hypothesis: str | dict[str, str]) -> list[str]:
+    if isinstance(hypothesis, str) and hypothesis:
+        return ["hypothesis: >-", f"  {hypothesis}"]
+    parts = hypothesis or dict(PLACEHOLDER_PARTS)
+    return [
+        "hypothesis:  # shown as: <change> for <audience> should <expected>. Observed <observed>.",
+        *(f"  {key}: {_q(value)}" for key, value in parts.items()),  # type: ignore[union-attr]
+    ]
 
 
 def _plan_lines(draft: Draft, arms: list[Arm]) -> list[str]:

@@ -1,29 +1,37 @@
-"""Memos in the terminal (rich); record text is never read as markup."""
+"""Memos in the terminal (rich), fitted to its width; plain text with tab-separated tables when piped. Record
+text is never read as markup."""
 
 from __future__ import annotations
 
+from typing import Any
+
 from archive.render.model import Memo
+from archive.render.tables import print_table
 
 
-def render_terminal(memo: Memo, console) -> None:  # type: ignore[no-untyped-def]
-    from rich.table import Table as RichTable
-
-    console.print(f"[bold]{_rich_escape(memo.title)}[/bold]")
+def render_terminal(memo: Memo, console: Any, plain: bool | None = None) -> None:
+    """Print a memo; ``plain`` (default: the console is not a terminal) gives text and tab-separated tables."""
+    plain = not console.is_terminal if plain is None else plain
+    wrap: dict[str, Any] = {"markup": False, "highlight": False}
+    if not plain:  # wrap prose at spaces to the terminal's width
+        wrap.update(soft_wrap=False, overflow="fold")
+    if plain:
+        console.print(memo.title, **wrap)
+    else:
+        console.print(f"[bold]{_rich_escape(memo.title)}[/bold]", soft_wrap=False, overflow="fold")
     for line in memo.lead:
-        console.print(line, markup=False)
+        console.print(line, **wrap)
     for section in memo.sections:
-        console.print(f"\n[bold underline]{section.heading}[/bold underline]")
+        if plain:
+            console.print(f"\n{section.heading}", **wrap)
+        else:
+            console.print(f"\n[bold underline]{_rich_escape(section.heading)}[/bold underline]", soft_wrap=False)
         for p in section.paragraphs:
-            console.print(p, markup=False)
+            console.print(p, **wrap)
         for table in section.tables:
-            rich_table = RichTable(header_style="bold", show_lines=False)
-            for header in table.headers:
-                rich_table.add_column(header, overflow="fold")
-            for row in table.rows:
-                rich_table.add_row(*(_styled(c) for c in row))
-            console.print(rich_table)
+            print_table(console, table.headers, table.rows, style=_style, plain=plain)
         for b in section.bullets:
-            console.print(f"  - {b}", markup=False)
+            console.print(f"  - {b}", **wrap)
 
 
 def _rich_escape(text: str) -> str:
@@ -35,7 +43,5 @@ def _rich_escape(text: str) -> str:
 _STYLES = {"winner": "green", "loser": "red", "FAILED": "bold red", "check": "yellow", "trade-off": "magenta"}
 
 
-def _styled(cell: str):  # type: ignore[no-untyped-def]
-    from rich.text import Text
-
-    return Text(cell, style=_STYLES.get(cell, ""))
+def _style(cell: str) -> str:
+    return _STYLES.get(cell, "")

@@ -81,7 +81,7 @@ def test_page(entry: TestEntry, data: SiteData) -> str:
     out += [" · ".join(facts), ""]
     if r.tags:
         out += ["Tags: " + ", ".join(f"[{md_text(t)}](../tags.md#{slug(t)})" for t in r.tags), ""]
-    out += ["## Hypothesis", "", md_text(r.hypothesis), ""]
+    out += ["## Hypothesis", "", md_text(r.hypothesis_text()), ""]
     out += _plan_section(r)
     if entry.memo_markdown:
         out += ["## Results", "", f"![Posterior of the lift]({entry.id}-lift.svg)", "", entry.memo_markdown, ""]

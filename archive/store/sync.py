@@ -384,7 +384,12 @@ def _insert(conn: Connection, items: Iterable[_Processed], records: dict[str, Re
         if item.derived is not None:
             rows["analysis"].append(item.derived.row(r.id))
         rows["search"].append(
-            {"record_id": r.id, "title": r.title, "hypothesis": r.hypothesis, "learnings_text": "\n".join(r.learnings)}
+            {
+                "record_id": r.id,
+                "title": r.title,
+                "hypothesis": r.hypothesis_text(),
+                "learnings_text": "\n".join(r.learnings),
+            }
         )
     for table, name in ((RECORD, "record"), (ARM, "arm"), (THEME, "theme"), (TAG, "tag"), (SEGMENT, "segment")):
         for start in range(0, len(rows[name]), _CHUNK * 4):
@@ -405,6 +410,7 @@ def _record_row(r: Record, item: _Processed, warnings_json: str) -> dict[str, An
     core = {name: getattr(r, name) for name in RecordCore.model_fields}
     return {
         **core,
+        "hypothesis": r.hypothesis_text(),
         "path": item.name,
         "content_hash": item.digest,
         "file_stamp": item.stamp,
