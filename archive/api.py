@@ -60,8 +60,12 @@ def find_root(start: Path) -> Path | None:
 
 
 def read_settings(root: Path) -> Settings:
-    """The analysis settings of an archive: defaults, overridden by ``archive-settings.yaml`` at its root (keys:
-    the scalar fields of :class:`~archive.analysis.Settings`, e.g. ``srm_alpha: 0.001``, ``confidence: 0.95``)."""
+    """The analysis settings of an archive: defaults, overridden by ``archive-settings.yaml`` at its root. Keys: the
+    scalar fields of :class:`~archive.analysis.Settings` (e.g. ``srm_alpha: 0.001``, ``confidence: 0.95``), and
+    ``rules:`` with fields of :class:`~archive.analysis.verdict.VerdictRules` (e.g. ``ship_on_probability: true``,
+    ``revenue_margin: 0.03``). ``synonyms:`` is read by :func:`read_synonyms`."""
+    from archive.analysis.verdict import VerdictRules
+
     path = root / SETTINGS_FILE
     if not path.is_file():
         return Settings()
@@ -73,22 +77,41 @@ def read_settings(root: Path) -> Settings:
         raise ValueError(f"{path}:1: -: not readable YAML ({exc.__class__.__name__})") from None
     if not isinstance(data, dict):
         raise ValueError(f"{path}:1: -: expected a mapping of setting: value")
-    known = {f.name: f for f in dataclasses.fields(Settings)}
+    data = {k: v for k, v in data.items() if k != "synonyms"}
+    rules = data.pop("rules", None) or {}
+    if not isinstance(rules, dict):
+        raise ValueError(f"{path}:1: rules: expected a mapping of rule: value")
+    try:
+        values = _typed(path, "", Settings(), {k: v for k, v in data.items()}, exclude=frozenset({"rules"}))
+        values["rules"] = VerdictRules(**_typed(path, "rules.", VerdictRules(), rules))
+        return Settings(**values)
+    except (TypeError, ValueError) as exc:
+        if str(exc).startswith(str(path)):
+            raise
+        raise ValueError(f"{path}:1: -: {exc}") from None
+
+
+def _typed(
+    path: Path, prefix: str, defaults: Any, data: dict[str, Any], exclude: frozenset[str] = frozenset()
+) -> dict[str, Any]:
+    """Values of ``data`` checked against the fields (and types of the defaults) of a settings dataclass."""
+    known = {f.name for f in dataclasses.fields(defaults)} - exclude
     values: dict[str, Any] = {}
     for key, value in data.items():
-        if key == "synonyms":
-            continue  # see read_synonyms
-        if key not in known or key == "rules":
-            raise ValueError(f"{path}:1: {key}: unknown setting; known: {', '.join(sorted(set(known) - {'rules'}))}")
-        default = getattr(Settings(), key)
+        if key not in known:
+            raise ValueError(f"{path}:1: {prefix}{key}: unknown setting; known: {', '.join(sorted(known))}")
+        default = getattr(defaults, key)
         if key == "prior" and isinstance(value, list):
             value = tuple(float(v) for v in value)
+        elif isinstance(default, bool):
+            if not isinstance(value, bool):
+                raise ValueError(f"{path}:1: {prefix}{key}: expected true or false, got {value!r}")
         elif isinstance(default, float) and isinstance(value, int | float) and not isinstance(value, bool):
             value = float(value)
         elif default is not None and not isinstance(value, type(default)):
-            raise ValueError(f"{path}:1: {key}: expected {type(default).__name__}, got {value!r}")
+            raise ValueError(f"{path}:1: {prefix}{key}: expected {type(default).__name__}, got {value!r}")
         values[key] = value
-    return Settings(**values)
+    return values
 
 
 def read_synonyms(root: Path) -> dict[str, list[str]]:

@@ -86,6 +86,13 @@ def test_settings_change_reanalyses_every_record(archive_dir: Path) -> None:
     (archive_dir / "archive-settings.yaml").write_text("srm_alfa: 0.01\n")
     with pytest.raises(ValueError, match="srm_alfa: unknown setting"):
         Archive.open(archive_dir)
+    (archive_dir / "archive-settings.yaml").write_text("rules:\n  ship_on_probability: yes-please\n")
+    with pytest.raises(ValueError, match="rules.ship_on_probability: expected true or false"):
+        Archive.open(archive_dir)
+    (archive_dir / "archive-settings.yaml").write_text("rules:\n  ship_on_probability: true\n")
+    opted = Archive.open(archive_dir)
+    assert opted.settings.rules.ship_on_probability is True
+    assert len(opted.index().reanalysed) == 76  # a rule change is a settings change
 
 
 def test_outdated_store_is_refused_then_rebuilt(archive_dir: Path, own_store: str) -> None:
