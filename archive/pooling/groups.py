@@ -20,7 +20,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
-from scipy import optimize, special, stats
+from scipy import optimize, special
 
 from archive.analysis import json_safe
 from archive.analysis.verdict import VerdictRules, null_ship_rates
@@ -73,6 +73,12 @@ def jeffreys(count: int, total: int, level: float = 0.95) -> Rate:
     return Rate(count, total, count / total, low, high)
 
 
+def _betabinom_logpmf(x: np.ndarray, n: np.ndarray, a: float, b: float) -> np.ndarray:
+    """log P(x | n, a, b) of the beta-binomial distribution (as scipy.stats.betabinom.logpmf)."""
+    log_choose = special.gammaln(n + 1) - special.gammaln(x + 1) - special.gammaln(n - x + 1)
+    return log_choose + special.betaln(x + a, n - x + b) - special.betaln(a, b)
+
+
 def beta_binomial_fit(counts: list[int], totals: list[int]) -> tuple[float, float] | None:
     """Maximum marginal likelihood Beta(a, b) for rates x_g / n_g (empirical Bayes); None if it cannot be fitted."""
     x, n = np.asarray(counts, float), np.asarray(totals, float)
@@ -83,7 +89,7 @@ def beta_binomial_fit(counts: list[int], totals: list[int]) -> tuple[float, floa
 
     def negative(params: np.ndarray) -> float:
         a, b = np.exp(params)
-        return -float(np.sum(stats.betabinom.logpmf(x, n, a, b)))
+        return -float(np.sum(_betabinom_logpmf(x, n, a, b)))
 
     mean = x.sum() / n.sum()
     start = np.log([mean * 10, (1 - mean) * 10])
@@ -286,7 +292,7 @@ def _group(key: str, items: list[Effect], re: GroupPooling, dl: GroupPooling, i:
     mean = float(re.mean[i])
     v = np.array([e.variance for e in items])
     se_plain = math.sqrt(1 / float(np.sum(1 / (v + tau2))))
-    z = float(stats.norm.ppf(0.975))
+    z = float(special.ndtri(0.975))
     members = []
     for e in items:
         weight = 0.0 if tau2 == 0 else (1 / e.variance) / (1 / e.variance + 1 / tau2)
@@ -399,7 +405,7 @@ def fpr_from_prior(pi: float, alpha: float, power: float, false_win_rate: float 
 def lee_shen_bias(true_effects: np.ndarray, ses: np.ndarray, z: float = 1.959963984540054) -> float:
     """Lee & Shen (2018): expected excess of the summed estimates of shipped changes over their true effects,
     sum_i sigma_i phi((sigma_i b - a_i) / sigma_i), for X_i ~ N(a_i, sigma_i^2) shipped when X_i > b sigma_i."""
-    return float(np.sum(ses * stats.norm.pdf((ses * z - true_effects) / ses)))
+    return float(np.sum(ses * np.exp(-0.5 * ((ses * z - true_effects) / ses) ** 2) / math.sqrt(2 * math.pi)))
 
 
 def rule_false_win_rate(effects: list[Effect], alpha: float, rules: VerdictRules | None = None) -> float:
@@ -476,7 +482,7 @@ def meta_regression_by_date(effects: list[Effect], permutations: int = 1000, see
         return None
     slope, se, tau2 = _wls_slope(x, y, v)
     z = slope / se
-    p = float(2 * stats.norm.sf(abs(z)))
+    p = float(2 * special.ndtr(-abs(z)))
     perm_p = None
     if permutations:
         rng = np.random.default_rng(seed)
@@ -523,7 +529,7 @@ def egger_test(effects: list[Effect]) -> Egger | None:
     cov = sigma2 * np.linalg.inv(design.T @ design)
     se_int = float(math.sqrt(cov[0, 0]))
     t = beta[0] / se_int
-    p = float(2 * stats.t.sf(abs(t), df))
+    p = float(2 * special.stdtr(df, -(abs(t))))
     warning = None
     if p < 0.10:  # common practice: Egger's test is read at 0.10 because it has little power
         warning = (

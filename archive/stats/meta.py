@@ -19,7 +19,7 @@ from dataclasses import dataclass
 from typing import Literal
 
 import numpy as np
-from scipy import optimize, special, stats
+from scipy import optimize, special
 
 TauMethod = Literal["DL", "PM", "REML"]
 HKSJ_FLOOR_LABEL = "HKSJ with the Knapp-Hartung max(1, q) floor (t, k-1 df)"
@@ -58,7 +58,7 @@ def heterogeneity(effects: ArrayLike, variances: ArrayLike) -> Heterogeneity:
     mean = float(np.sum(w * y) / np.sum(w))
     q = float(np.sum(w * (y - mean) ** 2))
     df = len(y) - 1
-    p = float(stats.chi2.sf(q, df)) if df > 0 else None
+    p = float(special.chdtrc(df, q)) if df > 0 else None
     # df = 0 (one estimate): Q is 0 up to rounding, and (Q - 0) / Q would give 100%
     i2 = max(0.0, (q - df) / q) if q > 0 and df > 0 else 0.0
     return Heterogeneity(len(y), mean, float(math.sqrt(1 / np.sum(w))), q, df, p, i2)
@@ -204,16 +204,16 @@ def random_effects(
         if hksj_floor:
             q_hk = max(1.0, q_hk)
         se_used = se * math.sqrt(q_hk)
-        crit = float(stats.t.ppf(tail, k - 1))
-        p = float(2 * stats.t.sf(abs(mean / se_used), k - 1)) if se_used > 0 else 0.0
+        crit = float(special.stdtrit(k - 1, tail))
+        p = float(2 * special.stdtr(k - 1, -(abs(mean / se_used)))) if se_used > 0 else 0.0
         kind = HKSJ_FLOOR_LABEL if hksj_floor else "HKSJ (t, k-1 df)"
     else:
-        se_used, crit, kind = se, float(stats.norm.ppf(tail)), "normal"
-        p = float(2 * stats.norm.sf(abs(mean / se)))
+        se_used, crit, kind = se, float(special.ndtri(tail)), "normal"
+        p = float(2 * special.ndtr(-abs(mean / se)))
     het = heterogeneity(y, v)
     pred_low = pred_high = hts_low = hts_high = None
     if k >= 3:
-        half = float(stats.t.ppf(tail, k - 2)) * math.sqrt(tau2 + se**2)
+        half = float(special.stdtrit(k - 2, tail)) * math.sqrt(tau2 + se**2)
         hts_low, hts_high = mean - half, mean + half
         interval = cd_prediction_interval(y, v, confidence) if prediction else None
         pred_low, pred_high = interval if interval is not None else (None, None)
@@ -275,7 +275,7 @@ def cd_prediction_interval(
     if k < 3:
         return None
     u = (np.arange(points) + 0.5) / points
-    tau2 = _tau2_at_q(y, v, np.asarray(stats.chi2.ppf(u, k - 1)))
+    tau2 = _tau2_at_q(y, v, np.asarray(special.chdtri(k - 1, 1 - (u))))
     w = 1 / (v[None, :] + tau2[:, None])
     centres = np.sum(w * y, axis=1) / np.sum(w, axis=1)
     scales = np.sqrt(tau2 + 1 / np.sum(w, axis=1))
@@ -294,8 +294,8 @@ def cd_prediction_interval(
 def tau2_q_profile(y: np.ndarray, v: np.ndarray, confidence: float = 0.95) -> tuple[float, float]:
     """Q-profile interval of tau^2: the tau^2 values at which the generalised Q equals chi-square quantiles."""
     k = len(y)
-    upper_q = stats.chi2.ppf(0.5 + confidence / 2, k - 1)
-    lower_q = stats.chi2.ppf(0.5 - confidence / 2, k - 1)
+    upper_q = special.chdtri(k - 1, 1 - (0.5 + confidence / 2))
+    lower_q = special.chdtri(k - 1, 1 - (0.5 - confidence / 2))
 
     def solve(target: float) -> float:
         if _generalised_q(0.0, y, v) <= target:
@@ -323,4 +323,4 @@ def interaction_test(e1: float, se1: float, e2: float, se2: float) -> Interactio
     d = e1 - e2
     se = math.sqrt(se1**2 + se2**2)
     z = d / se
-    return Interaction(d, se, z, float(2 * stats.norm.sf(abs(z))))
+    return Interaction(d, se, z, float(2 * special.ndtr(-abs(z))))

@@ -15,7 +15,7 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import special, stats
+from scipy import special
 
 from archive.stats.meta import HKSJ_FLOOR_LABEL, PREDICTION_POINTS, ArrayLike, TauMethod, reml_grid
 
@@ -312,7 +312,7 @@ def _pool(
     fixed_se = np.sqrt(1 / sw0)
     q = s.sum(w0 * (y - s.spread(fixed_mean)) ** 2)
     q_p_value = nan.copy()
-    q_p_value[multi] = stats.chi2.sf(q[multi], df[multi])
+    q_p_value[multi] = special.chdtrc(df[multi], q[multi])
     # I^2 = max(0, (Q - df) / Q); 0 when Q = 0 or df = 0 (one estimate: Q is 0 up to rounding)
     i_squared = np.where((q > 0) & multi, np.maximum(0.0, (q - df) / q), 0.0)
 
@@ -345,17 +345,17 @@ def _pool(
         q_hk = np.maximum(1.0, q_hk)  # Knapp-Hartung modification: never narrower than the plain interval
     se = np.where(use_t, se_plain * np.sqrt(q_hk), se_plain)
     crit = nan.copy()
-    crit[use_t] = _by_distinct(lambda d: stats.t.ppf(tail, d), df[use_t])
-    crit[use_z] = stats.norm.ppf(tail)
+    crit[use_t] = _by_distinct(lambda d: special.stdtrit(d, tail), df[use_t])
+    crit[use_z] = special.ndtri(tail)
     p_value = nan.copy()
     z = np.abs(mean / se)
-    p_value[use_t] = np.where(se[use_t] > 0, 2 * stats.t.sf(z[use_t], df[use_t]), 0.0)
-    p_value[use_z] = 2 * stats.norm.sf(z[use_z])
+    p_value[use_t] = np.where(se[use_t] > 0, 2 * special.stdtr(df[use_t], -(z[use_t])), 0.0)
+    p_value[use_z] = 2 * special.ndtr(-z[use_z])
 
     # Higgins-Thompson-Spiegelhalter: mean +/- t_{k-2} sqrt(tau2 + SE^2), with the plain (not HKSJ) SE
     three = k >= 3
     half = nan.copy()
-    half[three] = _by_distinct(lambda d: stats.t.ppf(tail, d), k[three] - 2.0) * np.sqrt(
+    half[three] = _by_distinct(lambda d: special.stdtrit(d, tail), k[three] - 2.0) * np.sqrt(
         tau2[three] + se_plain[three] ** 2
     )
     wanted = three if prediction else np.zeros(n, dtype=bool)
@@ -363,8 +363,8 @@ def _pool(
 
     # Q-profile interval of tau^2: the generalised Q equal to the chi-square (k-1) quantiles
     upper_q, lower_q = nan.copy(), nan.copy()
-    upper_q[multi] = _by_distinct(lambda d: stats.chi2.ppf(tail, d), df[multi])
-    lower_q[multi] = _by_distinct(lambda d: stats.chi2.ppf(0.5 - confidence / 2, d), df[multi])
+    upper_q[multi] = _by_distinct(lambda d: special.chdtri(d, 1 - (tail)), df[multi])
+    lower_q[multi] = _by_distinct(lambda d: special.chdtri(d, 1 - (0.5 - confidence / 2)), df[multi])
     tau2_low = _solve_q(model, np.where(multi, upper_q, 1.0), q, multi, k_var_y, atol)
     tau2_high = _solve_q(model, np.where(multi, lower_q, 1.0), q, multi, k_var_y, atol)
 
@@ -425,7 +425,7 @@ def _cd_prediction(
     dfs = np.where(active, df, 1.0)
     tau2 = np.zeros(n)
     for j in range(PREDICTION_POINTS - 1, -1, -1):  # u falling: chi-square target falling, tau^2 growing
-        target = _by_distinct(lambda d, p=u[j]: stats.chi2.ppf(p, d), dfs)  # type: ignore[misc]
+        target = _by_distinct(lambda d, p=u[j]: special.chdtri(d, 1 - (p)), dfs)  # type: ignore[misc]
         tau2 = _solve_q(model, target, q0, active, k_var_y, atol, start=tau2)
         w = 1 / (model.v + s.spread(tau2))
         sw = s.sum(w)
