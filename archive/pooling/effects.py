@@ -16,7 +16,7 @@ from collections.abc import Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from archive.analysis import Analysis, CannotAnalyze, Settings, analyze
+from archive.analysis.results import Analysis, CannotAnalyze, Settings
 from archive.records.load import LoadedRecord, check_archive
 from archive.records.model import Record
 from archive.records.orders import Orders
@@ -86,6 +86,8 @@ def _rpv(
 
 def record_effects(record: Record, orders: Orders | None = None, settings: Settings | None = None) -> list[Effect]:
     """The comparisons of one finished test (empty for a test without results)."""
+    from archive.analysis import analyze
+
     try:
         analysis = analyze(record, orders, settings)
     except CannotAnalyze:

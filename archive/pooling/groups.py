@@ -20,9 +20,9 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
-from scipy import optimize, special
+from scipy import special
 
-from archive.analysis import json_safe
+from archive.analysis.results import json_safe
 from archive.analysis.verdict import VerdictRules, null_ship_rates
 from archive.pooling.effects import Effect
 from archive.stats.beta_binomial import hierarchical_rates
@@ -93,6 +93,8 @@ def beta_binomial_fit(counts: list[int], totals: list[int]) -> tuple[float, floa
 
     mean = x.sum() / n.sum()
     start = np.log([mean * 10, (1 - mean) * 10])
+    from scipy import optimize
+
     result = optimize.minimize(negative, start, method="Nelder-Mead", options={"xatol": 1e-8, "fatol": 1e-10})
     a, b = np.exp(result.x)
     return (float(a), float(b)) if math.isfinite(a) and math.isfinite(b) else None
@@ -484,6 +486,8 @@ def meta_regression_by_date(effects: list[Effect], permutations: int = 1000, see
     z = slope / se
     p = float(2 * special.ndtr(-abs(z)))
     perm_p = None
+    if len(dated) > PERMUTATION_MAX_K:
+        permutations = 0  # the z-test is accurate at this many comparisons; permutation is for small k
     if permutations:
         rng = np.random.default_rng(seed)
         hits = 0
@@ -496,6 +500,7 @@ def meta_regression_by_date(effects: list[Effect], permutations: int = 1000, see
 
 
 _PERMUTATION_CHUNK = 100  # permutations computed together (rows of one array)
+PERMUTATION_MAX_K = 500  # above this many dated comparisons the permutation p is not computed (z-test only)
 
 
 def _wls_slope(x: np.ndarray, y: np.ndarray, v: np.ndarray) -> tuple[float, float, float]:

@@ -68,7 +68,12 @@ def build_pool_memo(p: PoolResult) -> Memo:
         m = p.meta_regression
         checks.append(
             f"Meta-regression on {m.moderator}: slope {m.slope:+.4f} log-lift per year (SE {m.se:.4f}), "
-            f"p {pvalue(m.p_value)}, permutation p {pvalue(m.permutation_p_value)} ({m.permutations} permutations)."
+            f"p {pvalue(m.p_value)}, "
+            + (
+                f"permutation p {pvalue(m.permutation_p_value)} ({m.permutations} permutations)."
+                if m.permutations
+                else f"no permutation p: with {m.k} comparisons the z-test is accurate."
+            )
         )
     if p.egger is not None:
         e = p.egger

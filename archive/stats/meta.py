@@ -16,10 +16,10 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import Literal
+from typing import Any, Literal
 
 import numpy as np
-from scipy import optimize, special
+from scipy import special
 
 TauMethod = Literal["DL", "PM", "REML"]
 HKSJ_FLOOR_LABEL = "HKSJ with the Knapp-Hartung max(1, q) floor (t, k-1 df)"
@@ -86,7 +86,7 @@ def tau2_pm(y: np.ndarray, v: np.ndarray) -> float:
     hi = max(1.0, float(np.var(y)) * 10)
     while _generalised_q(hi, y, v) > k - 1:
         hi *= 10
-    return float(optimize.brentq(lambda t: _generalised_q(t, y, v) - (k - 1), 0.0, hi, xtol=1e-14, rtol=1e-12))
+    return float(_brentq(lambda t: _generalised_q(t, y, v) - (k - 1), 0.0, hi, xtol=1e-14, rtol=1e-12))
 
 
 def _reml_score(tau2: float, y: np.ndarray, v: np.ndarray) -> float:
@@ -149,7 +149,7 @@ def tau2_reml(y: np.ndarray, v: np.ndarray) -> float:
         if score[i] > 0 >= score[i + 1]:
             root = float(grid[i + 1])
             if score[i + 1] < 0:
-                root = float(optimize.brentq(_reml_score, grid[i], grid[i + 1], args=(y, v), xtol=1e-300, rtol=1e-14))
+                root = float(_brentq(_reml_score, grid[i], grid[i + 1], args=(y, v), xtol=1e-300, rtol=1e-14))
             value = _negative_restricted_loglik(root, y, v)
             if value < best_nll:
                 best, best_nll = root, value
@@ -286,8 +286,8 @@ def cd_prediction_interval(
     lo, hi = float(np.min(centres - 10 * scales)), float(np.max(centres + 10 * scales))
     tail = (1 - confidence) / 2
     return (
-        float(optimize.brentq(lambda x: cdf(x) - tail, lo, hi, xtol=1e-14)),
-        float(optimize.brentq(lambda x: cdf(x) - (1 - tail), lo, hi, xtol=1e-14)),
+        float(_brentq(lambda x: cdf(x) - tail, lo, hi, xtol=1e-14)),
+        float(_brentq(lambda x: cdf(x) - (1 - tail), lo, hi, xtol=1e-14)),
     )
 
 
@@ -303,7 +303,7 @@ def tau2_q_profile(y: np.ndarray, v: np.ndarray, confidence: float = 0.95) -> tu
         hi = max(1.0, float(np.var(y)) * 10)
         while _generalised_q(hi, y, v) > target:
             hi *= 10
-        return float(optimize.brentq(lambda t: _generalised_q(t, y, v) - target, 0.0, hi, xtol=1e-14))
+        return float(_brentq(lambda t: _generalised_q(t, y, v) - target, 0.0, hi, xtol=1e-14))
 
     return solve(upper_q), solve(lower_q)
 
@@ -324,3 +324,10 @@ def interaction_test(e1: float, se1: float, e2: float, se2: float) -> Interactio
     se = math.sqrt(se1**2 + se2**2)
     z = d / se
     return Interaction(d, se, z, float(2 * special.ndtr(-abs(z))))
+
+
+def _brentq(*args: Any, **kwargs: Any) -> float:
+    """scipy.optimize.brentq, imported on first use (scipy.optimize costs a noticeable share of start-up)."""
+    from scipy import optimize
+
+    return float(optimize.brentq(*args, **kwargs))
