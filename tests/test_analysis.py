@@ -338,12 +338,13 @@ def test_zero_cell_point_estimate_lies_inside_its_interval() -> None:
     assert c.lift_low <= c.lift <= c.lift_high
 
 
-def test_memo_states_the_rule_first() -> None:
+def test_memo_answers_first_then_states_the_rule() -> None:
     from archive.render.analysis import build_memo
 
     a = analyze(record([arm("control", 50_000, 1500), arm("b", 50_000, 1700)]))
     memo = build_memo(a)
-    assert memo.lead[0].startswith("Ship rule:") and "Holm" in memo.lead[0] and "%" in memo.lead[0]
+    assert memo.lead[0].startswith("Ship b: +13.3% conversion [") and "Trust checks passed" in memo.lead[0]
+    assert memo.lead[1].startswith("Ship rule:") and "Holm" in memo.lead[1] and "%" in memo.lead[1]
     assert any("guardrail" in x for x in a.assumptions)
 
 

@@ -79,7 +79,7 @@ def test_analyze_fits_100_columns() -> None:
     assert loaded is not None
     memo = build_memo(analyze(loaded.record, loaded.orders, Settings()))
     console, buffer = _console()
-    render_terminal(memo, console, plain=False)
+    render_terminal(memo, console, plain=False, details=True)
     _assert_fits(buffer.getvalue(), _memo_tables(memo))
     assert "verdict" in buffer.getvalue()  # the verdict column outranks the probabilities when columns go
 

@@ -95,7 +95,7 @@ def _converter(cls: Any) -> Callable[[Any], Any]:
     if cls is dt.date:
         return lambda data: dt.date.fromisoformat(data) if isinstance(data, str) else data
     if cls is float:
-        return lambda data: None if data is None else float(data)
+        return _identity  # JSON gives floats back as floats (an int where a float is due is harmless)
     if isinstance(cls, type) and dataclasses.is_dataclass(cls):
         hints = typing.get_type_hints(cls)
         fields = [(f.name, _converter(hints[f.name])) for f in dataclasses.fields(cls)]

@@ -149,6 +149,7 @@ def analyze(record: Record, orders: Orders | None = None, settings: Settings | N
                 "seed": s.seed,
                 "rules": dataclasses.asdict(s.rules),
                 "alpha": alpha,
+                "currency": s.currency,
             }
         ),
         rule=rule_sentence(s.rules, alpha, margin, len(treatments)),

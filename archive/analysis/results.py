@@ -32,6 +32,7 @@ class Settings:
     top_fraction: float = 0.01
     bootstrap_replicates: int = 1000
     seed: int = 0
+    currency: str = "EUR"  # shown beside every amount of revenue (an archive setting)
     rules: VerdictRules = field(default_factory=VerdictRules)
 
 

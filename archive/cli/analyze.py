@@ -65,6 +65,9 @@ def analyze(
     forest: Annotated[
         Path | None, typer.Option(help="With --by: write one forest plot per arm, named <stem>-<arm><suffix>.")
     ] = None,
+    details: Annotated[
+        bool, typer.Option("--details", help="Also show the statistics behind the answer (terminal).")
+    ] = False,
     records: RecordsOption = None,
     db: DbOption = None,
     no_sync: NoSyncOption = False,
@@ -106,7 +109,7 @@ def analyze(
         if fmt is MemoFormat.markdown:
             sys.stdout.write(render_markdown(memo))
         else:
-            render_terminal(memo, out)
+            render_terminal(memo, out, details=details)
     for path in written:
         err.print(f"plot written to {path}", markup=False)
 

@@ -35,6 +35,9 @@ def pool(
     plots: Annotated[
         Path | None, typer.Option(help="Write a forest plot per group and a funnel plot here (SVG).")
     ] = None,
+    details: Annotated[
+        bool, typer.Option("--details", help="Also show the statistics behind the answer (terminal).")
+    ] = False,
     records: RecordsOption = None,
     db: DbOption = None,
     no_sync: NoSyncOption = False,
@@ -59,6 +62,6 @@ def pool(
     elif fmt is MemoFormat.markdown:
         sys.stdout.write(render_markdown(build_pool_memo(result)))
     else:
-        render_terminal(build_pool_memo(result), out)
+        render_terminal(build_pool_memo(result), out, details=details)
     if written:
         err.print(f"{len(written)} plots written to {plots}", markup=False)

@@ -2,16 +2,70 @@
 
 from __future__ import annotations
 
-from archive.analysis import Analysis
+from archive.analysis.results import Analysis, Comparison
 from archive.analysis.segments import SegmentAnalysis
 from archive.render.formats import STATUS_MARK, interval, interval_plain, money, pct, prob, pvalue
 from archive.render.model import Memo, Section, Table
 
 
-def build_memo(a: Analysis, segments: SegmentAnalysis | None = None) -> Memo:
+def answer(a: Analysis) -> str:
+    """The answer in one or two plain sentences: what to do, the lift it rests on, revenue, the trust checks."""
     rec = a.recommendation
-    lead = [a.rule] if a.rule else []
-    lead.append(f"Recommendation: {rec.explanation}.")
+    by_arm = {c.arm: c for c in a.comparisons}
+    currency = str(a.settings.get("currency") or "")
+
+    def lift(c: Comparison) -> str:
+        shown = pct(c.lift, 1, True)
+        return f"{shown} conversion {interval(c.lift_low, c.lift_high)}" if c.lift_low is not None else shown
+
+    if rec.action == "ship" and rec.arm in by_arm:
+        c = by_arm[rec.arm]
+        head = f"Ship {rec.arm}: {lift(c)}, {_revenue_words(c, currency)}."
+    elif rec.action == "iterate":
+        arms = ", ".join(rec.keep_arms)
+        size = f" with about {rec.visitors_per_arm_needed:,} visitors per arm" if rec.visitors_per_arm_needed else ""
+        head = f"Not decided yet: test {arms} again against control{size}."
+        best = max(a.comparisons, key=lambda c: c.lift or -1.0, default=None)
+        if best is not None:
+            head += f" Best so far {best.arm}: {lift(best)}, {_revenue_words(best, currency)}."
+    else:
+        best = max(a.comparisons, key=lambda c: c.lift or -1.0, default=None)
+        head = "Keep control: no arm beats it."
+        if best is not None:
+            head = f"Keep control: no arm beats it (best {best.arm}: {lift(best)}, {_revenue_words(best, currency)})."
+    failed = [c.name for c in a.checks if c.status == "failed"]
+    warned = [c.name for c in a.checks if c.status == "warning"]
+    if failed:
+        trust = f"Trust check failed: {', '.join(failed)}; read every figure with care."
+    elif warned:
+        trust = f"Trust checks passed, with a warning on {', '.join(warned)}."
+    else:
+        trust = "Trust checks passed."
+    return f"{head} {trust}"
+
+
+def _revenue_words(c: Comparison, currency: str) -> str:
+    r = c.revenue
+    if r.lift is None:
+        return "revenue per visitor not recorded"
+    change = pct(r.lift, 1, True)
+    if r.lift_low is None:
+        return f"revenue per visitor {change} (unchecked: its spread is unknown)"
+    if c.revenue_guardrail == "non-inferior" or (r.lift_low is not None and r.lift_low > -c.revenue_margin):
+        return f"revenue per visitor not worse ({change} {interval(r.lift_low, r.lift_high)})"
+    return f"revenue per visitor {change} {interval(r.lift_low, r.lift_high)}"
+
+
+def _arm_label(name: str, control: bool) -> str:
+    return f"{name} (control)" if control and name != "control" else name
+
+
+def build_memo(a: Analysis, segments: SegmentAnalysis | None = None) -> Memo:
+    """The memo of one test: the answer first, then the main table, then the statistics behind it (sections
+    marked as details), the segments asked for and the assumptions."""
+    rec = a.recommendation
+    currency = str(a.settings.get("currency") or "")
+    lead = [answer(a)] + ([a.rule] if a.rule else [])
     if rec.recorded_outcome is not None:
         recorded = rec.recorded_outcome + (f" {rec.recorded_arm}" if rec.recorded_arm else "")
         lead.append(
@@ -21,61 +75,89 @@ def build_memo(a: Analysis, segments: SegmentAnalysis | None = None) -> Memo:
         )
     else:
         lead.append("No decision recorded yet.")
-    if not a.trusted:
-        failed = ", ".join(c.name for c in a.checks if c.status == "failed")
-        lead.append(f"Trust check failed ({failed}): every verdict below is downgraded one step.")
+    by_arm = {c.arm: c for c in a.comparisons}
+    main_rows = []
+    for arm in a.arms:
+        c = by_arm.get(arm.name)
+        lift = ""
+        if c is not None:
+            lift = pct(c.lift, 1, True)
+            lift += f" {interval(c.lift_low, c.lift_high)}" if c.lift_low is not None else " (no interval)"
+        main_rows.append(
+            [
+                _arm_label(arm.name, arm.control),
+                f"{arm.visitors:,}",
+                pct(arm.rate, 2),
+                lift,
+                "control" if c is None else c.verdict,
+                money(arm.revenue_per_visitor, currency=currency),
+            ]
+        )
+    results = Section(
+        "Results",
+        paragraphs=[f"Recommendation: {rec.explanation}."],
+        tables=[
+            Table(
+                ["arm", "visitors", "conversion", "lift vs control (95% CI)", "verdict", "revenue/visitor"], main_rows
+            )
+        ],
+    )
     checks = Section(
         "Trust checks",
         tables=[Table(["check", "status", "detail"], [[c.name, STATUS_MARK[c.status], c.detail] for c in a.checks])],
+        details=True,
     )
-    by_arm = {c.arm: c for c in a.comparisons}
     rows = []
     for arm in a.arms:
         c = by_arm.get(arm.name)
         rows.append(
             [
-                arm.name + (" (control)" if arm.control else ""),
-                f"{arm.visitors:,}",
+                _arm_label(arm.name, arm.control),
                 f"{arm.conversions:,}",
                 f"{pct(arm.rate, 2)} {interval_plain(arm.rate_low, arm.rate_high)}",
-                "" if c is None else f"{pct(c.lift, 1, True)} {interval(c.lift_low, c.lift_high)}",
                 "" if c is None else pvalue(c.p_value),
                 "" if c is None else pvalue(c.p_holm),
                 "" if c is None else prob(c.prob_beat_control),
                 prob(arm.prob_best),
                 f"{arm.expected_loss * 100:.3f} pp",
-                "" if c is None else c.verdict,
             ]
         )
     conversion = Section(
-        "Conversion (primary metric)",
+        "Conversion details",
+        paragraphs=[
+            "Holm p: the p-value adjusted for comparing several arms with one control. P(beats control), P(best) "
+            "and expected loss are Bayesian figures under the stated prior; they inform, they never ship an arm. "
+            "Equivalence (TOST) tests whether the lift lies within the margin that matters."
+        ],
         tables=[
             Table(
                 [
                     "arm",
-                    "visitors",
                     "conversions",
                     "rate (95% credible)",
-                    "lift vs control (95% CI)",
                     "p",
                     "Holm p",
                     "P(beats control)",
                     "P(best)",
                     "expected loss (rate points)",
-                    "verdict",
                 ],
                 rows,
             )
         ],
         bullets=[f"{c.arm}: {c.verdict}: {c.reason}." for c in a.comparisons]
         + [
-            f"{c.arm}: credible interval of the lift {interval(c.credible_lift_low, c.credible_lift_high)}; "
-            f"equivalence within +/-{pct(c.equivalence_margin)}: p {pvalue(c.equivalence_p)}"
+            f"{c.arm}: credible interval of the lift {interval(c.credible_lift_low, c.credible_lift_high)}"
+            + (
+                ""
+                if c.verdict == "winner"
+                else f"; equivalence within +/-{pct(c.equivalence_margin)}: p {pvalue(c.equivalence_p)}"
+            )
             + (" (zero cell: 0.5 added to each cell)" if c.zero_cell_correction else "")
             for c in a.comparisons
         ],
+        details=True,
     )
-    sections = [checks, conversion, _revenue_section(a)]
+    sections = [results, checks, conversion, _revenue_section(a)]
     if segments is not None:
         sections += segment_sections(segments)
     sections.append(Section("Assumptions", bullets=list(a.assumptions)))
@@ -84,11 +166,12 @@ def build_memo(a: Analysis, segments: SegmentAnalysis | None = None) -> Memo:
 
 def _revenue_section(a: Analysis) -> Section:
     control = next(x for x in a.arms if x.control)
+    currency = str(a.settings.get("currency") or "")
     rows = [
         [
-            f"{control.name} (control)",
-            money(control.revenue_per_visitor),
-            money(control.average_order_value),
+            _arm_label(control.name, True),
+            money(control.revenue_per_visitor, currency=currency),
+            money(control.average_order_value, currency=currency),
             "",
             "",
             "",
@@ -104,8 +187,8 @@ def _revenue_section(a: Analysis) -> Section:
         rows.append(
             [
                 c.arm,
-                money(arm.revenue_per_visitor),
-                money(arm.average_order_value),
+                money(arm.revenue_per_visitor, currency=currency),
+                money(arm.average_order_value, currency=currency),
                 diff,
                 f"{pct(r.lift, 1, True)} {interval(r.lift_low, r.lift_high)}" if r.lift is not None else "n/a",
                 r.method,
@@ -133,7 +216,7 @@ def _revenue_section(a: Analysis) -> Section:
     table = Table(
         ["arm", "revenue/visitor", "avg order value", "RPV difference (95% CI)", "RPV lift (95% CI)", "method"], rows
     )
-    return Section("Revenue (secondary metrics)", tables=[table], bullets=bullets)
+    return Section("Revenue details", tables=[table], bullets=bullets, details=True)
 
 
 def segment_sections(seg: SegmentAnalysis) -> list[Section]:

@@ -20,10 +20,12 @@ def interval(low: float | None, high: float | None, digits: int = 1) -> str:
     return f"[{pct(low, digits, True)}, {pct(high, digits, True)}]"
 
 
-def money(value: float | None, signed: bool = False) -> str:
+def money(value: float | None, signed: bool = False, currency: str = "") -> str:
+    """An amount with two decimals (and its currency when given): ``3.28 EUR``, ``+0.41 EUR``."""
     if value is None:
         return "n/a"
-    return f"{value:+,.3f}" if signed else f"{value:,.3f}"
+    text = f"{value:+,.2f}" if signed else f"{value:,.2f}"
+    return f"{text} {currency}" if currency else text
 
 
 def pvalue(p: float | None) -> str:

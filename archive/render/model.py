@@ -17,6 +17,7 @@ class Section:
     paragraphs: list[str] = field(default_factory=list)
     tables: list[Table] = field(default_factory=list)
     bullets: list[str] = field(default_factory=list)
+    details: bool = False  # the statistics behind the answer: shown on request (--details) in the terminal
 
 
 @dataclass

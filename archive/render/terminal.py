@@ -9,8 +9,9 @@ from archive.render.model import Memo
 from archive.render.tables import print_table
 
 
-def render_terminal(memo: Memo, console: Any, plain: bool | None = None) -> None:
-    """Print a memo; ``plain`` (default: the console is not a terminal) gives text and tab-separated tables."""
+def render_terminal(memo: Memo, console: Any, plain: bool | None = None, details: bool = False) -> None:
+    """Print a memo; ``plain`` (default: the console is not a terminal) gives text and tab-separated tables.
+    Sections marked as details (the statistics behind the answer) are printed only with ``details``."""
     plain = not console.is_terminal if plain is None else plain
     wrap: dict[str, Any] = {"markup": False, "highlight": False}
     if not plain:  # wrap prose at spaces to the terminal's width
@@ -21,7 +22,10 @@ def render_terminal(memo: Memo, console: Any, plain: bool | None = None) -> None
         console.print(f"[bold]{_rich_escape(memo.title)}[/bold]", soft_wrap=False, overflow="fold")
     for line in memo.lead:
         console.print(line, **wrap)
+    hidden = [s.heading for s in memo.sections if s.details and not details]
     for section in memo.sections:
+        if section.details and not details:
+            continue
         if plain:
             console.print(f"\n{section.heading}", **wrap)
         else:
@@ -32,6 +36,8 @@ def render_terminal(memo: Memo, console: Any, plain: bool | None = None) -> None
             print_table(console, table.headers, table.rows, style=_style, plain=plain)
         for b in section.bullets:
             console.print(f"  - {b}", **wrap)
+    if hidden:
+        console.print(f"\nNot shown: {', '.join(hidden)}. Add --details to see them.", **wrap)
 
 
 def _rich_escape(text: str) -> str:
