@@ -111,7 +111,7 @@ def _words(*parts: str) -> str:
     return " ".join(" ".join(parts).split())
 
 
-def search_index(entries: list[TestEntry], records: dict[str, Record], groups: dict[str, list[str]]) -> str:
+def search_index(entries: list[TestEntry], records: dict[str, Record], groups: dict[str, list[tuple[str, str]]]) -> str:
     """The site's search index as a script (``window.ARCHIVE_SEARCH``), so a page opened from disk can load it
     with a script tag: a browser refuses workers and fetches on file pages. Each document: title, address from
     the site root, kind, and the text searched; plus the synonym groups of :mod:`archive.store.query`."""

@@ -197,8 +197,8 @@ def group_page(kind: str, group: GroupResult, data: SiteData, pooled: PoolResult
         except ValueError:
             pass
     out += ["| figure | value |", "|---|---|", *[f"| {a} | {b} |" for a, b in rows], ""]
-    rows, links, notes = group_chart(group, data)
-    out += layout.inline_chart(svg.forest_chart(rows, group.key, links, notes))
+    chart_rows, links, notes = group_chart(group, data)
+    out += layout.inline_chart(svg.forest_chart(chart_rows, group.key, links, notes))
     out += [
         f"Each row links to its test. [The chart as an SVG file]({slug(group.key)}-forest.svg).",
         "",
@@ -342,10 +342,9 @@ def group_index(kind: str, pooled: PoolResult | None, data: SiteData) -> str:
         "|---|---|---|---|---|",
     ]
     ranked = [g for g in pooled.groups if not g.warning]
-    for g in ranked:
-        out.append(_ranked_row(g, "") + f" {g.wins.count}/{g.wins.total} |")
+    out += [_ranked_row(g, "") + f" {g.wins.count}/{g.wins.total} |" for g in ranked]
     if not ranked:
-        out.append("| none has enough comparisons to rank yet | | | | |")
+        out = [*out[:-4], f"No {noun.lower()[:-1]} has enough comparisons to be ranked yet."]
     out += ["", *too_few(kind, pooled, data, "")]
     return "\n".join(out).rstrip() + "\n"
 
@@ -432,15 +431,18 @@ def home_page(data: SiteData, latest: int = 8) -> str:
         ]
     out += ["![Tests per quarter](assets/tests-per-quarter.svg)", ""]
     if pooled is not None:
-        out += [
-            "## What tends to win",
-            "",
-            md_text(pooled.ranking) + ".",
-            "",
-            "| theme | comparisons | pooled lift (95% CI) | next test (95% PI) |",
-            "|---|---|---|---|",
-        ]
-        out += [_ranked_row(g, "themes/") for g in pooled.groups if not g.warning]
+        ranked = [g for g in pooled.groups if not g.warning]
+        out += ["## What tends to win", ""]
+        if ranked:
+            out += [
+                md_text(pooled.ranking) + ".",
+                "",
+                "| theme | comparisons | pooled lift (95% CI) | next test (95% PI) |",
+                "|---|---|---|---|",
+            ]
+            out += [_ranked_row(g, "themes/") for g in ranked]
+        else:
+            out.append("No theme has enough comparisons to be ranked yet.")
         out.append("")
         out += too_few("themes", pooled, data, "themes/", level=3)
     out += ["## Latest learnings", ""]

@@ -169,7 +169,8 @@ def forest_chart(
         link = links[i] if links is not None else None
         lines.append(f'<a href="{_esc(link)}"><title>{_esc(label)}</title>{text}</a>' if link else text)
         if i % 2 == 0:
-            lines.insert(3, f'<rect x="0" y="{_num(y_top)}" width="{FOREST_WIDTH}" height="{heights[i]}" fill="#f6f4ef"/>')
+            stripe = f'<rect x="0" y="{_num(y_top)}" width="{FOREST_WIDTH}" height="{heights[i]}" fill="#f6f4ef"/>'
+            lines.insert(3, stripe)
         if summary:
             pts = f"{_num(sx(lo))},{_num(y)} {_num(sx(estimate))},{_num(y - 6)} {_num(sx(hi))},{_num(y)} "
             pts += f"{_num(sx(estimate))},{_num(y + 6)}"
