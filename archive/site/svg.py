@@ -201,8 +201,13 @@ def bar_chart(bars: Sequence[tuple[str, int]], title: str, axis_label: str = "te
     lines = _frame(height, title)
     lines.append(f'<text x="{WIDTH / 2:.1f}" y="18" text-anchor="middle" font-size="12">{_esc(title)}</text>')
     peak = max((n for _, n in bars), default=1) or 1
-    ticks = [t for t in _ticks(0, peak, 4) if t == int(t)] or [0.0]
-    scale_top = max(peak, ticks[-1])
+    raw = peak / 4
+    magnitude = 10 ** math.floor(math.log10(raw)) if raw >= 1 else 1
+    step = max(1, next(m * magnitude for m in (1, 2, 5, 10) if m * magnitude >= raw))
+    ticks = list(range(0, peak + step, step))
+    while ticks[-2] >= peak:
+        ticks.pop()
+    scale_top = ticks[-1]
     width = (right - left) / max(1, len(bars))
 
     def sy(n: float) -> float:
