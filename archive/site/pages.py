@@ -72,7 +72,7 @@ def test_page(entry: TestEntry, data: SiteData) -> str:
     r = data.records[entry.id]
     out = [f"# {md_text(r.title)}", "", *layout.answer_block(entry, r)]
     facts = [
-        f"**{md_text(r.status)}**",
+        layout.label(r.status),
         f"{r.started or '?'} to {r.ended or '?'}",
         f"page area {_label_links([r.page_area], 'areas')}",
         f"themes {_label_links(r.themes, 'themes')}",
