@@ -62,6 +62,75 @@ def test_record_text_cannot_inject_html_or_links(built: Path) -> None:
     assert len(table_rows) == 1 and table_rows[0].count(" | ") == 5  # six cells: the pipes in the title are escaped
 
 
+def test_new_theme_with_failed_check_builds_and_stands_apart(built: Path) -> None:
+    # gift-wrap-note.yaml: the only test of its theme and page area, with a sample ratio mismatch
+    docs = built / "docs"
+    assert (built / "html" / "tests" / "gift-wrap-note.html").exists()
+    assert (built / "html" / "themes" / "gift-wrapping.html").exists()
+    assert (built / "html" / "areas" / "product-page.html").exists()
+    themes = (docs / "themes" / "index.md").read_text(encoding="utf-8")
+    ranked, apart = themes.split("Too few tests to rank")
+    assert "gift-wrapping" not in ranked and "[gift-wrapping](gift-wrapping.md) | 0 |" in apart
+    assert "shipping-cost" not in ranked and "shipping-cost" in apart  # 3 comparisons: fewer than 5, not ranked
+    page = (docs / "tests" / "gift-wrap-note.md").read_text(encoding="utf-8")
+    assert page.index("**Verdict:**") < page.index("## Hypothesis")  # the answer comes first
+    assert "trust check failed: sample ratio" in page and '<span class="tone tone-bad">FAILED</span>' in page
+
+
+def test_running_and_planned_tests_show_plan_not_verdict(built: Path) -> None:
+    docs = built / "docs"
+    for name, status in (("review-stars", "running"), ("size-guide", "planned")):
+        page = (docs / "tests" / f"{name}.md").read_text(encoding="utf-8")
+        assert "## Plan" in page and "visitors per arm" in page
+        assert "**Verdict:**" not in page and "### Conversion" not in page and "-lift.svg" not in page
+        assert f"Not analysed while the test is {status}" in page
+        row = next(line for line in (docs / "tests" / "index.md").read_text().splitlines() if f"({name}.md)" in line)
+        assert row.endswith("| no verdict yet |")
+    # 5,000 + 5,010 visitors of 2 x 40,000 planned (review-stars.yaml): 10,010 / 80,000 = 12.5%, shown as 13%
+    assert "10,010 of 80,000 planned visitors so far (13%)" in (docs / "tests" / "review-stars.md").read_text()
+
+
+def test_no_documentation_chrome_and_search_without_worker(built: Path) -> None:
+    html = built / "html"
+    page = (html / "tests" / "basket-bar.html").read_text(encoding="utf-8")
+    assert "Documentation built with" not in page and 'rel="next"' not in page and 'rel="prev"' not in page
+    assert "search/main.js" not in page and "worker" not in page.lower()
+    assert not (html / "search").exists()  # no built-in search plugin (its worker fails on file pages)
+    index = (html / "assets" / "search-index.js").read_text(encoding="utf-8")
+    assert index.startswith("window.ARCHIVE_SEARCH = ") and "<" not in index  # the tricky title is escaped
+    assert "tests/gift-wrap-note.html" in index and '"delivery"' in index
+
+
+def test_quarters_without_tests_are_shown() -> None:
+    import datetime as dt
+    from types import SimpleNamespace
+
+    from archive.site.pages import quarter_counts
+
+    def rec(day: str) -> SimpleNamespace:
+        return SimpleNamespace(started=dt.date.fromisoformat(day))
+
+    data = SimpleNamespace(records={"a": rec("2023-02-01"), "b": rec("2023-11-30"), "c": rec("2024-01-15")})
+    # by hand: Q1 2023 holds a, Q2 and Q3 2023 are empty, Q4 2023 holds b, Q1 2024 holds c
+    assert quarter_counts(data) == [("2023 Q1", 1), ("2023 Q2", 0), ("2023 Q3", 0), ("2023 Q4", 1), ("2024 Q1", 1)]
+
+
+def test_forest_labels_wrap_without_losing_words() -> None:
+    from archive.site.svg import wrap_label
+
+    title = "A handwritten gift note offered on the product page for orders placed before the December cut-off"
+    lines = wrap_label(title, 30)
+    assert len(lines) > 1 and all(len(line) <= 30 for line in lines) and " ".join(lines) == title
+    assert wrap_label("x" * 70, 30) == ["x" * 30, "x" * 30, "x" * 10]
+
+
+def test_unknown_verdict_name_gets_the_neutral_tone_with_its_label() -> None:
+    from archive.site.layout import label
+
+    assert label("some-new-verdict") == '<span class="tone tone-neutral">some-new-verdict</span>'
+    assert 'tone-bad">FAILED<' in label("FAILED")
+
+
 class _Links(HTMLParser):
     def __init__(self) -> None:
         super().__init__()
@@ -182,6 +251,7 @@ class _QuietHandler(http.server.SimpleHTTPRequestHandler):
 
 def test_browser_walkthrough(browser, served: str) -> None:  # type: ignore[no-untyped-def]
     from selenium.webdriver.common.by import By
+    from selenium.webdriver.common.keys import Keys
     from selenium.webdriver.support import expected_conditions as ec
     from selenium.webdriver.support.ui import WebDriverWait
 
@@ -198,12 +268,117 @@ def test_browser_walkthrough(browser, served: str) -> None:  # type: ignore[no-u
     images = driver.find_elements(By.CSS_SELECTOR, "img[src$='.svg']")
     assert images and all(driver.execute_script("return arguments[0].naturalWidth", img) > 0 for img in images)
     driver.save_screenshot(str(ARTIFACTS / "test-page.png"))
-    # the theme's built-in search: open the dialog, type, wait for a result linking to a test
-    driver.get(f"{served}/index.html")
-    driver.find_element(By.CSS_SELECTOR, "a[data-bs-target='#mkdocs_search_modal'], a[data-toggle='modal']").click()
-    box = WebDriverWait(driver, 10).until(ec.visibility_of_element_located((By.ID, "mkdocs-search-query")))
-    box.send_keys("desktop")
-    WebDriverWait(driver, 15).until(
-        lambda d: d.find_elements(By.CSS_SELECTOR, "#mkdocs-search-results a[href*='tests/']")
+    # colours and their labels: every coloured label carries text, and a failed check does not look like a pass
+    driver.get(f"{served}/tests/gift-wrap-note.html")
+    labels = driver.find_elements(By.CSS_SELECTOR, "span.tone")
+    assert labels and all(label.text.strip() for label in labels)
+    by_text = {label.text.strip(): label.value_of_css_property("background-color") for label in labels}
+    assert {"FAILED", "ok", "inconclusive", "iterate"} <= set(by_text)
+    assert by_text["FAILED"] != by_text["ok"] and by_text["FAILED"] != "rgba(0, 0, 0, 0)"
+    answer = driver.find_element(By.CSS_SELECTOR, "h1 + blockquote").text
+    assert "Verdict:" in answer and "Decision:" in answer and "trust check failed" in answer
+    assert not driver.find_elements(By.CSS_SELECTOR, "footer p, a[rel='next'], a[rel='prev']")
+    driver.save_screenshot(str(ARTIFACTS / "untrusted-test.png"))
+    # a running test shows its plan and progress, no verdict
+    driver.get(f"{served}/tests/review-stars.html")
+    answer = driver.find_element(By.CSS_SELECTOR, "h1 + blockquote").text
+    assert "No verdict" in answer and "Verdict:" not in answer and "leaning" not in driver.page_source
+    # the tests index sorts and filters
+    driver.get(f"{served}/tests/index.html")
+    rows = driver.find_elements(By.CSS_SELECTOR, "table tbody tr")
+    driver.find_element(By.CSS_SELECTOR, ".table-filter-text").send_keys("gift")
+    visible = [r for r in rows if r.is_displayed()]
+    assert len(visible) == 1 and "gift note" in visible[0].text
+    driver.find_element(By.CSS_SELECTOR, ".table-filter-text").send_keys(Keys.BACKSPACE * 4)
+    assert all(r.is_displayed() for r in rows)
+    started = driver.find_element(By.XPATH, "//th[normalize-space(.)='started']")
+    started.click()
+    dates = [r.find_elements(By.TAG_NAME, "td")[1].text for r in driver.find_elements(By.CSS_SELECTOR, "tbody tr")]
+    filled = [d for d in dates if d]
+    assert filled == sorted(filled) and dates[-1] == ""  # ascending, the unstarted test last
+    driver.save_screenshot(str(ARTIFACTS / "tests-index.png"))
+    # search through the server too
+    _search(driver, f"{served}/themes/index.html", "desktop", "tests/")
+
+
+def _search(driver, url: str, words: str, expect: str) -> list[str]:  # type: ignore[no-untyped-def]
+    from selenium.webdriver.common.by import By
+    from selenium.webdriver.support.ui import WebDriverWait
+
+    driver.get(url)
+    box = driver.find_element(By.ID, "archive-search")
+    box.click()
+    box.send_keys(words)
+    WebDriverWait(driver, 10).until(
+        lambda d: d.find_elements(By.CSS_SELECTOR, f"#archive-search-results a[href*='{expect}']")
     )
-    driver.save_screenshot(str(ARTIFACTS / "search.png"))
+    return [a.get_attribute("href") for a in driver.find_elements(By.CSS_SELECTOR, "#archive-search-results a")]
+
+
+def test_browser_from_disk_and_phone(browser, built: Path) -> None:  # type: ignore[no-untyped-def]
+    """The site as a user opens it from disk (file:// pages: no web worker, no fetch), on a wide and a phone
+    screen."""
+    from selenium.webdriver.common.by import By
+    from selenium.webdriver.support import expected_conditions as ec
+    from selenium.webdriver.support.ui import WebDriverWait
+
+    ARTIFACTS.mkdir(exist_ok=True)
+    driver = browser
+    html = (built / "html").as_uri()
+    # search typed and answered on a page opened from disk, from the home page and from a nested page
+    found = _search(driver, f"{html}/index.html", "desktop", "tests/basket-bar.html")
+    assert all(link.startswith("file://") for link in found)
+    driver.save_screenshot(str(ARTIFACTS / "search-from-disk.png"))
+    driver.find_element(By.CSS_SELECTOR, "#archive-search-results a[href*='tests/']").click()
+    WebDriverWait(driver, 10).until(ec.url_contains("/tests/"))
+    # a word the records do not use, found through its synonym (postage ~ delivery), from a nested page
+    found = _search(driver, f"{html}/tests/basket-bar.html", "postage", "tests/basket-bar")
+    assert all("/html/tests/" in link or "/html/themes/" in link or "/html/areas/" in link for link in found)
+    box = driver.find_element(By.ID, "archive-search")
+    box.clear()
+    box.send_keys("zzzqqq")
+    WebDriverWait(driver, 10).until(lambda d: "Nothing found" in d.find_element(By.ID, "archive-search-results").text)
+    # the new theme (its only test failed a trust check) has its page, listed apart from the ranking
+    driver.get(f"{html}/themes/index.html")
+    driver.find_element(By.LINK_TEXT, "gift-wrapping").click()
+    WebDriverWait(driver, 10).until(ec.title_contains("gift-wrapping"))
+    assert driver.find_elements(By.PARTIAL_LINK_TEXT, "A handwritten gift note")
+    # forest plot: every label inside the drawing (no title cut), each test row a link to its page
+    driver.get(f"{html}/themes/shipping-cost.html")
+    svg = driver.find_element(By.CSS_SELECTOR, ".chart svg")
+    view_width = driver.execute_script("return arguments[0].viewBox.baseVal.width", svg)
+    boxes = driver.execute_script(
+        "return Array.from(arguments[0].querySelectorAll('text.forest-label, text.forest-note')).map(t => {"
+        " const b = t.getBBox(); return [b.x, b.x + b.width, t.textContent]; })",
+        svg,
+    )
+    assert len(boxes) >= 5
+    for left, right, text in boxes:
+        assert left >= 0 and right <= view_width, f"label {text!r} spans {left:.0f}..{right:.0f} of {view_width}"
+    labels = [text for _, _, text in boxes]
+    assert any("Threshold bar, second round" in t for t in labels)
+    links = driver.find_elements(By.CSS_SELECTOR, ".chart svg a")
+    assert len(links) == 3
+    driver.save_screenshot(str(ARTIFACTS / "forest.png"))
+    driver.execute_script("arguments[0].dispatchEvent(new MouseEvent('click', {bubbles: true}))", links[1])
+    WebDriverWait(driver, 10).until(ec.url_contains("/tests/"))
+    # a phone: nothing wider than the screen; tables and charts scroll inside their own box, charts unscaled
+    driver.set_window_size(390, 900)
+    for page in (
+        "index.html",
+        "tests/index.html",
+        "tests/basket-bar.html",
+        "themes/shipping-cost.html",
+        "learnings.html",
+    ):
+        driver.get(f"{html}/{page}")
+        width, inner = driver.execute_script("return [document.body.scrollWidth, window.innerWidth]")
+        assert width <= inner, f"{page}: body {width} px wide on a {inner} px screen"
+        for chart in driver.find_elements(By.CSS_SELECTOR, ".chart svg, img[src$='.svg']"):
+            shown, natural = driver.execute_script(
+                "const c = arguments[0]; return [c.getBoundingClientRect().width,"
+                " c.tagName === 'IMG' ? c.naturalWidth : c.viewBox.baseVal.width]",
+                chart,
+            )
+            assert shown >= natural - 0.5, f"{page}: a chart is scaled down, its text below 11 px"
+        driver.save_screenshot(str(ARTIFACTS / f"phone-{page.replace('/', '-').removesuffix('.html')}.png"))

@@ -207,7 +207,7 @@ def _print_record(r: Record) -> None:
     )
     if r.iterates_on:
         out.print(f"iterates on {r.iterates_on}", markup=False)
-    out.print(f"\nHypothesis: {r.hypothesis}", markup=False)
+    out.print(f"\nHypothesis: {r.hypothesis_text()}", markup=False)
     table = Table(header_style="bold")
     for column in ("arm", "visitors", "conversions", "rate", "orders", "revenue", "revenue/visitor"):
         table.add_column(column, justify="left" if column == "arm" else "right")

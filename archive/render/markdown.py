@@ -2,12 +2,17 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 from archive.render.formats import md_text
 from archive.render.model import Memo, Section
 
 
-def markdown_sections(sections: list[Section], level: int = 2) -> list[str]:
-    """Sections as Markdown lines; every cell and sentence escaped with :func:`md_text`."""
+def markdown_sections(
+    sections: list[Section], level: int = 2, cell: Callable[[str, str], str] | None = None
+) -> list[str]:
+    """Sections as Markdown lines; every cell and sentence escaped with :func:`md_text`. ``cell(header, value)``,
+    when given, writes the table cells instead (the site wraps some of them in coloured labels)."""
     out: list[str] = []
     for section in sections:
         out += [f"{'#' * level} {md_text(section.heading)}", ""]
@@ -15,7 +20,11 @@ def markdown_sections(sections: list[Section], level: int = 2) -> list[str]:
         for table in section.tables:
             out.append("| " + " | ".join(md_text(h) for h in table.headers) + " |")
             out.append("|" + "---|" * len(table.headers))
-            out += ["| " + " | ".join(md_text(c) for c in row) + " |" for row in table.rows]
+            out += [
+                "| " + " | ".join(cell(h, c) if cell else md_text(c) for h, c in zip(table.headers, row, strict=False))
+                + " |"
+                for row in table.rows
+            ]
             out.append("")
         out += [f"- {md_text(b)}" for b in section.bullets]
         if section.bullets:

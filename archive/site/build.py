@@ -8,6 +8,7 @@ The records folder is only read.
 
 from __future__ import annotations
 
+import json
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
@@ -16,7 +17,7 @@ from pathlib import Path
 from archive.pooling.effects import Effect
 from archive.pooling.groups import PoolResult, pool
 from archive.records.files import write_replace
-from archive.site import pages, svg
+from archive.site import layout, pages, svg
 from archive.site.entries import TestEntry, entries_for_folder
 
 REFERENCE = Path(__file__).resolve().parents[2] / "site"
@@ -48,32 +49,21 @@ class BuildReport:
 
 def mkdocs_config(title: str) -> str:
     """The MkDocs configuration: a navigation of constant size (tests are reached from index pages, so the
-    build stays linear in the number of tests), built-in theme and search, our own stylesheet."""
+    build stays linear in the number of tests), the built-in theme with our overrides (no footer, no
+    Previous/Next, full-width pages), our stylesheet and script, and our own search (see :mod:`layout`)."""
     return (
         f"site_name: {title!r}\n"
         "docs_dir: docs\n"
         "site_dir: html\n"
         "use_directory_urls: false\n"
-        "theme:\n  name: mkdocs\n  navigation_depth: 2\n  highlightjs: false\n"
+        f"theme:\n  name: mkdocs\n  custom_dir: {json.dumps(str(layout.THEME_DIR))}\n  navigation_depth: 2\n"
+        "  highlightjs: false\n"
         "extra_css:\n  - assets/archive.css\n"
-        "plugins:\n  - search\n"
+        "extra_javascript:\n  - assets/archive.js\n"
+        "plugins: []\n"
         "markdown_extensions:\n  - tables\n  - toc:\n      permalink: false\n  - attr_list\n"
         "validation:\n  links:\n    not_found: warn\n    anchors: warn\n" + NAV
     )
-
-
-STYLE = """/* archive: our own colours (ink blue, clay) on the built-in theme */
-:root { --archive-ink: #1b3a4b; --archive-clay: #c9642b; --archive-paper: #fbfaf7; }
-body { background: var(--archive-paper); }
-.navbar, .navbar.bg-primary { background-color: var(--archive-ink) !important; background-image: none !important;
-  border-bottom: 3px solid var(--archive-clay); }
-.navbar .navbar-brand, .navbar .nav-link { color: #f4efe6 !important; }
-h1, h2, h3 { color: var(--archive-ink); }
-a { color: #1b6f8a; }
-table { font-size: 0.9rem; }
-table td, table th { padding: 0.25rem 0.5rem !important; }
-img[src$=".svg"] { max-width: 100%; border: 1px solid #e4e0d8; background: #ffffff; }
-"""
 
 
 def _quarter_chart(data: pages.SiteData) -> bytes:
@@ -95,7 +85,10 @@ def generate(entries: list[TestEntry], progress: Callable[[str], None] | None = 
 
     add("index.md", pages.home_page(data))
     add("assets/tests-per-quarter.svg", _quarter_chart(data))
-    add("assets/archive.css", STYLE)
+    add("assets/archive.css", layout.stylesheet())
+    for name in layout.STATIC_ASSETS:
+        add(f"assets/{name}", layout.asset(name))
+    add("assets/search-index.js", layout.search_index(entries, data.records, pages.label_pages(data)))
     add("tests/index.md", pages.tests_index(data))
     for entry in entries:
         add(f"tests/{entry.id}.md", pages.test_page(entry, data))
@@ -103,6 +96,10 @@ def generate(entries: list[TestEntry], progress: Callable[[str], None] | None = 
             add(f"tests/{name}", chart)
     for kind, pooled in (("themes", by_theme), ("areas", by_area)):
         add(f"{kind}/index.md", pages.group_index(kind, pooled, data))
+        pooled_names = {pages.slug(g.key) for g in pooled.groups} if pooled else set()
+        for key, name in pages.label_pages(data)[kind]:
+            if name not in pooled_names:  # a label with nothing to pool (new, untrusted or unfinished tests)
+                add(f"{kind}/{name}.md", pages.unpooled_group_page(kind, key, data))
         if pooled is None:
             continue
         for group in pooled.groups:

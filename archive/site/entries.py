@@ -18,7 +18,7 @@ from archive.pooling.effects import Effect
 from archive.records.model import Record, record_from_json
 from archive.render.analysis import build_memo
 from archive.render.markdown import markdown_sections
-from archive.site import svg
+from archive.site import layout, svg
 from archive.stats import bayes
 from archive.store.tables import ANALYSIS, RECORD
 
@@ -36,6 +36,8 @@ class TestEntry:
     disagreement: str | None
     memo_markdown: str
     charts: dict[str, bytes] = field(default_factory=dict)  # file name -> SVG
+    summary: str = ""  # the memo's first sentence: what to do
+    failed_checks: list[str] = field(default_factory=list)  # names of the trust checks that failed
 
 
 def _lift_chart(analysis: Analysis, title: str) -> bytes:
@@ -97,8 +99,10 @@ def _entry(
         action=rec.action,
         agrees=rec.agrees_with_record,
         disagreement=rec.disagreement,
-        memo_markdown="\n".join(markdown_sections(memo.sections[:-1], level=3)),
+        memo_markdown="\n".join(markdown_sections(memo.sections[:-1], level=3, cell=layout.memo_cell)),
         charts=charts,
+        summary=memo.lead[0] if memo.lead else "",
+        failed_checks=[c.name for c in analysis.checks if c.status == "failed"],
     )
 
 

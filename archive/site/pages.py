@@ -16,6 +16,7 @@ from archive.planning.priors import lift_prior
 from archive.pooling.groups import GroupResult, PoolResult
 from archive.records.model import Record, canonical_label, record_from_json
 from archive.render.formats import interval, md_text, pct
+from archive.site import layout, svg
 from archive.site.entries import TestEntry
 
 
@@ -69,9 +70,9 @@ def _safe_url(url: str) -> str | None:
 
 def test_page(entry: TestEntry, data: SiteData) -> str:
     r = data.records[entry.id]
-    out = [f"# {md_text(r.title)}", ""]
+    out = [f"# {md_text(r.title)}", "", *layout.answer_block(entry, r)]
     facts = [
-        f"**{md_text(r.status)}**",
+        layout.label(r.status),
         f"{r.started or '?'} to {r.ended or '?'}",
         f"page area {_label_links([r.page_area], 'areas')}",
         f"themes {_label_links(r.themes, 'themes')}",
@@ -83,7 +84,9 @@ def test_page(entry: TestEntry, data: SiteData) -> str:
         out += ["Tags: " + ", ".join(f"[{md_text(t)}](../tags.md#{slug(t)})" for t in r.tags), ""]
     out += ["## Hypothesis", "", md_text(r.hypothesis_text()), ""]
     out += _plan_section(r)
-    if entry.memo_markdown:
+    if not layout.shows_verdict(r):
+        out += ["## Results", "", f"Not analysed while the test is {md_text(r.status)}: {layout.progress(r)}", ""]
+    elif entry.memo_markdown:
         out += ["## Results", "", f"![Posterior of the lift]({entry.id}-lift.svg)", "", entry.memo_markdown, ""]
         segment_charts = sorted(name for name in entry.charts if "-segments-" in name)
         if segment_charts:
@@ -93,7 +96,6 @@ def test_page(entry: TestEntry, data: SiteData) -> str:
         out += _realistic_section(entry, data)
     else:
         out += ["## Results", "", "No results yet.", ""]
-    out += _decision_section(r, entry)
     if r.learnings:
         out += ["## Learnings", "", *[f"- {md_text(item)}" for item in r.learnings], ""]
     related = []
@@ -150,18 +152,6 @@ def _realistic_section(entry: TestEntry, data: SiteData) -> list[str]:
     ]
 
 
-def _decision_section(r: Record, entry: TestEntry) -> list[str]:
-    out = ["## Decision", ""]
-    if r.decision is None:
-        out.append("No decision recorded.")
-    else:
-        arm = f" {md_text(r.decision.arm)}" if r.decision.arm else ""
-        out.append(f"**{md_text(r.decision.outcome)}{arm}**. {md_text(r.decision.rationale)}")
-    if entry.disagreement:
-        out += ["", f"Note: {md_text(entry.disagreement)}"]
-    return out + [""]
-
-
 # --- groups ---------------------------------------------------------------------------------------------
 
 
@@ -207,8 +197,10 @@ def group_page(kind: str, group: GroupResult, data: SiteData, pooled: PoolResult
         except ValueError:
             pass
     out += ["| figure | value |", "|---|---|", *[f"| {a} | {b} |" for a, b in rows], ""]
+    chart_rows, links, notes = group_chart(group, data)
+    out += layout.inline_chart(svg.forest_chart(chart_rows, group.key, links, notes))
     out += [
-        f"![Forest plot]({slug(group.key)}-forest.svg)",
+        f"Each row links to its test. [The chart as an SVG file]({slug(group.key)}-forest.svg).",
         "",
         f"Method: {md_text(pooled.method)}. {md_text(pooled.prediction_convention)}.",
         "",
@@ -223,7 +215,7 @@ def group_page(kind: str, group: GroupResult, data: SiteData, pooled: PoolResult
         record = data.records[m.record_id]
         out.append(
             f"| {test_link(record)} | {md_text(m.arm)} | {pct(m.lift, 1, True)} {interval(m.low, m.high)} | "
-            f"{pct(m.shrunk_lift, 1, True)} | {md_text(m.verdict)} | {'yes' if m.shipped else ''} |"
+            f"{pct(m.shrunk_lift, 1, True)} | {layout.label(m.verdict)} | {'yes' if m.shipped else ''} |"
         )
     out += ["", "## Learnings", ""]
     seen = []
@@ -236,11 +228,67 @@ def group_page(kind: str, group: GroupResult, data: SiteData, pooled: PoolResult
 
 
 def group_chart_rows(group: GroupResult, data: SiteData) -> list[tuple[str, float, float, float, bool]]:
-    rows = [(f"{m.record_id} · {m.arm}", m.lift, m.low, m.high, False) for m in group.members]
+    return group_chart(group, data)[0]
+
+
+def group_chart(
+    group: GroupResult, data: SiteData
+) -> tuple[list[tuple[str, float, float, float, bool]], list[str | None], list[tuple[str, str] | None]]:
+    """The forest plot of a group: rows labelled by test title and arm, each linked to its test page (from the
+    group's page), and the verdict written beside each row in its tone's colour."""
+    from archive.render.palette import TONE_COLOURS, tone
+
+    rows: list[tuple[str, float, float, float, bool]] = []
+    links: list[str | None] = []
+    notes: list[tuple[str, str] | None] = []
+    for m in group.members:
+        record = data.records[m.record_id]
+        rows.append((f"{record.title} · {m.arm}", m.lift, m.low, m.high, False))
+        links.append(f"../tests/{record.id}.html")
+        notes.append((m.verdict, TONE_COLOURS[tone(m.verdict)][0]))
     rows.append(("pooled (95% CI)", group.lift, group.lift_low, group.lift_high, True))
+    links.append(None)
+    notes.append(None)
     if group.prediction_low is not None and group.prediction_high is not None:
         rows.append(("next test (95% PI)", group.lift, group.prediction_low, group.prediction_high, False))
-    return rows
+        links.append(None)
+        notes.append(None)
+    return rows, links, notes
+
+
+def label_pages(data: SiteData) -> dict[str, list[tuple[str, str]]]:
+    """Every theme and page area a record uses, as (label, page name) per folder: each gets a page, pooled or not."""
+    themes = {t for r in data.records.values() for t in r.themes}
+    areas = {r.page_area for r in data.records.values()}
+    return {
+        "themes": sorted((t, slug(t)) for t in themes),
+        "areas": sorted((a, slug(a)) for a in areas),
+    }
+
+
+def unpooled_group_page(kind: str, key: str, data: SiteData) -> str:
+    """The page of a theme or page area with no comparison to pool: a new label, or tests that are unfinished or
+    failed a trust check. Lists its tests; nothing is ranked or pooled."""
+    noun = "theme" if kind == "themes" else "page area"
+    members = [
+        r for r in _sorted_records(data) if (key in r.themes if kind == "themes" else r.page_area == key)
+    ]
+    by_id = {e.id: e for e in data.entries}
+    out = [
+        f"# {md_text(key)}",
+        "",
+        f"No comparison of this {noun} can be pooled yet: its tests are unfinished or failed a trust check. "
+        "It is listed apart from the ranked groups.",
+        "",
+        "| test | started | status | verdicts |",
+        "|---|---|---|---|",
+    ]
+    for r in members:
+        out.append(
+            f"| {test_link(r)} | {r.started or ''} | {layout.label(r.status)} | "
+            f"{layout.verdict_labels(by_id[r.id], r)} |"
+        )
+    return "\n".join(out).rstrip() + "\n"
 
 
 def _ranked_row(g: GroupResult, folder: str) -> str:
@@ -251,19 +299,53 @@ def _ranked_row(g: GroupResult, folder: str) -> str:
     )
 
 
+def too_few(kind: str, pooled: PoolResult | None, data: SiteData, folder: str, level: int = 2) -> list[str]:
+    """The groups shown apart from the ranking: too few comparisons to rank, or none to pool at all."""
+    small = [g for g in pooled.groups if g.warning] if pooled else []
+    pooled_names = {slug(g.key) for g in pooled.groups} if pooled else set()
+    empty = [(key, name) for key, name in label_pages(data)[kind] if name not in pooled_names]
+    if not small and not empty:
+        return []
+    out = [
+        f"{'#' * level} Too few tests to rank",
+        "",
+        f"Fewer than {_min_group()} comparisons: their pooled figures are fragile, so they are not ranked.",
+        "",
+        "| group | comparisons | pooled lift (95% CI) | winners |",
+        "|---|---|---|---|",
+    ]
+    for g in sorted(small, key=lambda x: x.key):
+        out.append(
+            f"| [{md_text(g.key)}]({folder}{slug(g.key)}.md) | {g.comparisons} | {pct(g.lift, 1, True)} "
+            f"{interval(g.lift_low, g.lift_high)} | {g.wins.count}/{g.wins.total} |"
+        )
+    for key, name in empty:
+        out.append(f"| [{md_text(key)}]({folder}{name}.md) | 0 | none to pool yet | |")
+    return [*out, ""]
+
+
+def _min_group() -> int:
+    from archive.pooling.groups import MIN_GROUP
+
+    return MIN_GROUP
+
+
 def group_index(kind: str, pooled: PoolResult | None, data: SiteData) -> str:
     noun = "Themes" if kind == "themes" else "Page areas"
     out = [f"# {noun}", ""]
     if pooled is None:
-        return "\n".join([*out, "Nothing to pool yet."]) + "\n"
+        return "\n".join([*out, "Nothing to pool yet.", "", *too_few(kind, pooled, data, "")]).rstrip() + "\n"
     out += [
         md_text(pooled.ranking) + ".",
         "",
         "| group | comparisons | pooled lift (95% CI) | next test (95% PI) | winners |",
         "|---|---|---|---|---|",
     ]
-    for g in pooled.groups:
-        out.append(_ranked_row(g, "") + f" {g.wins.count}/{g.wins.total} |" + (" few tests |" if g.warning else ""))
+    ranked = [g for g in pooled.groups if not g.warning]
+    out += [_ranked_row(g, "") + f" {g.wins.count}/{g.wins.total} |" for g in ranked]
+    if not ranked:
+        out = [*out[:-4], f"No {noun.lower()[:-1]} has enough comparisons to be ranked yet."]
+    out += ["", *too_few(kind, pooled, data, "")]
     return "\n".join(out).rstrip() + "\n"
 
 
@@ -278,33 +360,43 @@ def tests_index(data: SiteData) -> str:
     out = [
         "# Tests",
         "",
-        "Every filed test, newest first.",
+        "Every filed test, newest first. Click a column heading to sort; type to filter. Planned and running tests "
+        "show their status instead of a verdict.",
+        "",
+        '<div class="table-filter" data-columns="status,page area,decision"></div>',
         "",
         "| test | started | page area | status | decision | verdicts |",
         "|---|---|---|---|---|---|",
     ]
     by_id = {e.id: e for e in data.entries}
     for r in _sorted_records(data):
-        verdicts = ", ".join(f"{md_text(a)}: {md_text(v)}" for a, v in sorted(by_id[r.id].verdicts.items()))
-        decision = md_text(r.decision.outcome) if r.decision else ""
+        entry = by_id[r.id]
+        verdicts = layout.verdict_labels(entry, r) if entry.verdicts or not layout.shows_verdict(r) else ""
+        if layout.shows_verdict(r) and not entry.trusted:
+            verdicts += " " + layout.label("failed", "trust check failed")
+        decision = layout.label(r.decision.outcome) if r.decision else ""
         out.append(
-            f"| {test_link(r, '')} | {r.started or ''} | {md_text(r.page_area)} | {md_text(r.status)} | {decision} | "
-            f"{verdicts} |"
+            f"| {test_link(r, '')} | {r.started or ''} | {md_text(r.page_area)} | {layout.label(r.status)} | "
+            f"{decision} | {verdicts} |"
         )
     return "\n".join(out).rstrip() + "\n"
 
 
 def learnings_page(data: SiteData) -> str:
-    out = ["# Learnings", "", "What the team learned, by theme (a test with two themes appears under both).", ""]
-    by_theme: dict[str, list[Record]] = defaultdict(list)
-    for r in data.records.values():
-        for theme in r.themes:
-            by_theme[theme].append(r)
-    for theme in sorted(by_theme):
-        out += [f"## {md_text(theme)}", ""]
-        for r in sorted(by_theme[theme], key=lambda x: (x.started or dt.date.min, x.id)):
-            for item in r.learnings:
-                out.append(f"- {md_text(item)} ({test_link(r, 'tests/')})")
+    out = [
+        "# Learnings",
+        "",
+        "What the team learned, test by test, newest first, with the decision taken and the themes.",
+        "",
+    ]
+    for r in _sorted_records(data):
+        if not r.learnings:
+            continue
+        facts = [str(r.started) if r.started else "not started"]
+        facts.append(f"decision {layout.label(r.decision.outcome)}" if r.decision else layout.label(r.status))
+        facts.append("themes " + _label_links(r.themes, "themes", ""))
+        out += [f"## {test_link(r, 'tests/')}", "", " · ".join(facts), ""]
+        out += [f"- {md_text(item)}" for item in r.learnings]
         out.append("")
     return "\n".join(out).rstrip() + "\n"
 
@@ -339,16 +431,20 @@ def home_page(data: SiteData, latest: int = 8) -> str:
         ]
     out += ["![Tests per quarter](assets/tests-per-quarter.svg)", ""]
     if pooled is not None:
-        out += [
-            "## What tends to win",
-            "",
-            md_text(pooled.ranking) + ".",
-            "",
-            "| theme | comparisons | pooled lift (95% CI) | next test (95% PI) |",
-            "|---|---|---|---|",
-        ]
-        out += [_ranked_row(g, "themes/") for g in pooled.groups]
+        ranked = [g for g in pooled.groups if not g.warning]
+        out += ["## What tends to win", ""]
+        if ranked:
+            out += [
+                md_text(pooled.ranking) + ".",
+                "",
+                "| theme | comparisons | pooled lift (95% CI) | next test (95% PI) |",
+                "|---|---|---|---|",
+            ]
+            out += [_ranked_row(g, "themes/") for g in ranked]
+        else:
+            out.append("No theme has enough comparisons to be ranked yet.")
         out.append("")
+        out += too_few("themes", pooled, data, "themes/", level=3)
     out += ["## Latest learnings", ""]
     shown = 0
     for r in records:
@@ -366,8 +462,11 @@ def home_page(data: SiteData, latest: int = 8) -> str:
 
 
 def quarter_counts(data: SiteData) -> list[tuple[str, int]]:
-    counts: dict[str, int] = defaultdict(int)
+    """Tests started per quarter, from the first quarter to the last, quarters without a test included."""
+    counts: dict[int, int] = defaultdict(int)
     for r in data.records.values():
         if r.started:
-            counts[f"{r.started.year} Q{(r.started.month - 1) // 3 + 1}"] += 1
-    return sorted(counts.items())
+            counts[r.started.year * 4 + (r.started.month - 1) // 3] += 1
+    if not counts:
+        return []
+    return [(f"{q // 4} Q{q % 4 + 1}", counts.get(q, 0)) for q in range(min(counts), max(counts) + 1)]

@@ -14,6 +14,9 @@ from collections.abc import Sequence
 from archive.render.palette import PALETTE
 
 WIDTH, PLOT_LEFT, PLOT_RIGHT = 640, 150, 620
+FONT = 11  # px, the smallest text of every chart; pages show charts at their own size (scrolling on a phone)
+# forest plots: a wide label column (titles wrap, never cut), the plot, then a note column (e.g. the verdict)
+FOREST_WIDTH, FOREST_LEFT, FOREST_RIGHT, LABEL_CHARS, LINE = 780, 320, 620, 44, 13
 
 
 def _esc(text: str) -> str:
@@ -40,20 +43,29 @@ def _ticks(low: float, high: float, count: int = 6) -> list[float]:
     return ticks
 
 
-def _frame(height: int, title: str) -> list[str]:
+def _frame(height: int, title: str, width: int = WIDTH) -> list[str]:
     return [
-        f'<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {WIDTH} {height}" width="{WIDTH}" height="{height}" '
-        f'role="img" aria-label="{_esc(title)}" font-family="sans-serif" font-size="11">',
+        f'<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {width} {height}" width="{width}" height="{height}" '
+        f'role="img" aria-label="{_esc(title)}" font-family="sans-serif" font-size="{FONT}">',
         f"<title>{_esc(title)}</title>",
-        f'<rect width="{WIDTH}" height="{height}" fill="#ffffff"/>',
+        f'<rect width="{width}" height="{height}" fill="#ffffff"/>',
     ]
 
 
-def _x_axis(lines: list[str], low: float, high: float, y: float, top: float, label: str) -> None:
+def _x_axis(
+    lines: list[str],
+    low: float,
+    high: float,
+    y: float,
+    top: float,
+    label: str,
+    left: float = PLOT_LEFT,
+    right: float = PLOT_RIGHT,
+) -> None:
     def sx(v: float) -> float:
-        return PLOT_LEFT + (v - low) / (high - low) * (PLOT_RIGHT - PLOT_LEFT)
+        return left + (v - low) / (high - low) * (right - left)
 
-    lines.append(f'<line x1="{PLOT_LEFT}" y1="{_num(y)}" x2="{PLOT_RIGHT}" y2="{_num(y)}" stroke="#555"/>')
+    lines.append(f'<line x1="{left}" y1="{_num(y)}" x2="{right}" y2="{_num(y)}" stroke="#555"/>')
     for t in _ticks(low, high):
         x = sx(t)
         lines.append(f'<line x1="{_num(x)}" y1="{_num(y)}" x2="{_num(x)}" y2="{_num(y + 4)}" stroke="#555"/>')
@@ -64,14 +76,33 @@ def _x_axis(lines: list[str], low: float, high: float, y: float, top: float, lab
             f'<line x1="{_num(x0)}" y1="{_num(top)}" x2="{_num(x0)}" y2="{_num(y)}" stroke="#333" '
             'stroke-dasharray="4 3"/>'
         )
-    lines.append(
-        f'<text x="{(PLOT_LEFT + PLOT_RIGHT) / 2:.1f}" y="{_num(y + 32)}" text-anchor="middle">{_esc(label)}</text>'
-    )
+    lines.append(f'<text x="{(left + right) / 2:.1f}" y="{_num(y + 32)}" text-anchor="middle">{_esc(label)}</text>')
+
+
+def wrap_label(text: str, width: int) -> list[str]:
+    """Words of ``text`` in lines of at most ``width`` characters (a longer word is cut, never dropped)."""
+    lines: list[str] = []
+    current = ""
+    for word in text.split():
+        while len(word) > width:
+            if current:
+                lines.append(current)
+                current = ""
+            lines.append(word[:width])
+            word = word[width:]
+        if current and len(current) + 1 + len(word) > width:
+            lines.append(current)
+            current = word
+        else:
+            current = f"{current} {word}" if current else word
+    if current or not lines:
+        lines.append(current)
+    return lines
 
 
 def density_chart(curves: Sequence[tuple[str, Sequence[float], Sequence[float], float, float]], title: str) -> bytes:
     """Curves as (label, lifts, densities, credible low, credible high); shaded between the credible bounds."""
-    height, top, bottom = 80 + 18 * len(curves) + 150, 30, 200
+    height, top, bottom = 200 + 60 + 18 * len(curves), 30, 200
     lines = _frame(height, title)
     lines.append(f'<text x="{WIDTH / 2:.1f}" y="18" text-anchor="middle" font-size="12">{_esc(title)}</text>')
     all_x = [x for _, xs, _, _, _ in curves for x in xs]
@@ -102,24 +133,44 @@ def density_chart(curves: Sequence[tuple[str, Sequence[float], Sequence[float], 
     return ("\n".join(lines) + "\n").encode("utf-8")
 
 
-def forest_chart(rows: Sequence[tuple[str, float, float, float, bool]], title: str) -> bytes:
-    """Rows as (label, estimate, low, high, is_summary): squares with intervals, diamonds for summaries."""
-    step, top = 22, 36
-    bottom = top + step * len(rows)
+def forest_chart(
+    rows: Sequence[tuple[str, float, float, float, bool]],
+    title: str,
+    links: Sequence[str | None] | None = None,
+    notes: Sequence[tuple[str, str] | None] | None = None,
+) -> bytes:
+    """Rows as (label, estimate, low, high, is_summary): squares with intervals, diamonds for summaries. Labels
+    wrap onto as many lines as they need; ``links`` (one per row, or None) make a row's label a link; ``notes``
+    (one per row: text and colour, or None) are written at the right of the row, in that colour."""
+    top = 36
+    wrapped = [wrap_label(label, LABEL_CHARS) for label, *_ in rows]
+    heights = [max(22, LINE * len(w) + 9) for w in wrapped]
+    bottom = top + sum(heights)
     height = bottom + 50
-    lines = _frame(height, title)
-    lines.append(f'<text x="{WIDTH / 2:.1f}" y="18" text-anchor="middle" font-size="12">{_esc(title)}</text>')
+    left, right = FOREST_LEFT, FOREST_RIGHT
+    lines = _frame(height, title, FOREST_WIDTH)
+    lines.append(f'<text x="{FOREST_WIDTH / 2:.1f}" y="18" text-anchor="middle" font-size="12">{_esc(title)}</text>')
     values = [v for _, e, lo, hi, _ in rows for v in (e, lo, hi) if math.isfinite(v)]
     low, high = (min(values), max(values)) if values else (-0.1, 0.1)
     pad = (high - low) * 0.08 or 0.01
     low, high = min(low - pad, -pad), max(high + pad, pad)
 
     def sx(v: float) -> float:
-        return PLOT_LEFT + (min(max(v, low), high) - low) / (high - low) * (PLOT_RIGHT - PLOT_LEFT)
+        return left + (min(max(v, low), high) - low) / (high - low) * (right - left)
 
+    y_top = float(top)
     for i, (label, estimate, lo, hi, summary) in enumerate(rows):
-        y = top + step * i + step / 2
-        lines.append(f'<text x="{PLOT_LEFT - 8}" y="{_num(y + 4)}" text-anchor="end">{_esc(label)}</text>')
+        y = y_top + heights[i] / 2
+        first = y + 4 - LINE * (len(wrapped[i]) - 1) / 2
+        spans = "".join(
+            f'<tspan x="8" y="{_num(first + LINE * k)}">{_esc(part)}</tspan>' for k, part in enumerate(wrapped[i])
+        )
+        text = f'<text class="forest-label">{spans}</text>'
+        link = links[i] if links is not None else None
+        lines.append(f'<a href="{_esc(link)}"><title>{_esc(label)}</title>{text}</a>' if link else text)
+        if i % 2 == 0:
+            stripe = f'<rect x="0" y="{_num(y_top)}" width="{FOREST_WIDTH}" height="{heights[i]}" fill="#f6f4ef"/>'
+            lines.insert(3, stripe)
         if summary:
             pts = f"{_num(sx(lo))},{_num(y)} {_num(sx(estimate))},{_num(y - 6)} {_num(sx(hi))},{_num(y)} "
             pts += f"{_num(sx(estimate))},{_num(y + 6)}"
@@ -132,26 +183,54 @@ def forest_chart(rows: Sequence[tuple[str, float, float, float, bool]], title: s
             lines.append(
                 f'<rect x="{_num(sx(estimate) - 3.5)}" y="{_num(y - 3.5)}" width="7" height="7" fill="{PALETTE[0]}"/>'
             )
-    _x_axis(lines, low, high, bottom, top, "relative lift against control, 95% interval")
+        note = notes[i] if notes is not None else None
+        if note:
+            lines.append(
+                f'<text class="forest-note" x="{right + 12}" y="{_num(y + 4)}" fill="{_esc(note[1])}" '
+                f'font-weight="bold">{_esc(note[0])}</text>'
+            )
+        y_top += heights[i]
+    _x_axis(lines, low, high, bottom, top, "relative lift against control, 95% interval", left, right)
     lines.append("</svg>")
     return ("\n".join(lines) + "\n").encode("utf-8")
 
 
-def bar_chart(bars: Sequence[tuple[str, int]], title: str) -> bytes:
-    """Vertical bars with their labels underneath (counts per period)."""
-    height, top, bottom, left, right = 260, 34, 200, 50, WIDTH - 20
+def bar_chart(bars: Sequence[tuple[str, int]], title: str, axis_label: str = "tests") -> bytes:
+    """Vertical bars with their labels underneath (counts per period, empty periods included), and a count axis."""
+    height, top, bottom, left, right = 270, 34, 200, 56, WIDTH - 20
     lines = _frame(height, title)
     lines.append(f'<text x="{WIDTH / 2:.1f}" y="18" text-anchor="middle" font-size="12">{_esc(title)}</text>')
     peak = max((n for _, n in bars), default=1) or 1
+    raw = peak / 4
+    magnitude = 10 ** math.floor(math.log10(raw)) if raw >= 1 else 1
+    step = max(1, next(m * magnitude for m in (1, 2, 5, 10) if m * magnitude >= raw))
+    ticks = list(range(0, peak + step, step))
+    while ticks[-2] >= peak:
+        ticks.pop()
+    scale_top = ticks[-1]
     width = (right - left) / max(1, len(bars))
+
+    def sy(n: float) -> float:
+        return bottom - n / scale_top * (bottom - top)
+
+    for t in ticks:
+        y = sy(t)
+        lines.append(f'<line x1="{left}" y1="{_num(y)}" x2="{right}" y2="{_num(y)}" stroke="#e4e0d8"/>')
+        lines.append(f'<text x="{left - 6}" y="{_num(y + 4)}" text-anchor="end">{int(t)}</text>')
+    lines.append(f'<line x1="{left}" y1="{top}" x2="{left}" y2="{bottom}" stroke="#555"/>')
     lines.append(f'<line x1="{left}" y1="{bottom}" x2="{right}" y2="{bottom}" stroke="#555"/>')
+    lines.append(
+        f'<text x="14" y="{(top + bottom) / 2:.1f}" text-anchor="middle" '
+        f'transform="rotate(-90 14 {(top + bottom) / 2:.1f})">{_esc(axis_label)}</text>'
+    )
     for i, (label, n) in enumerate(bars):
         x = left + i * width
-        h = n / peak * (bottom - top)
-        lines.append(
-            f'<rect x="{_num(x + width * 0.15)}" y="{_num(bottom - h)}" width="{_num(width * 0.7)}" '
-            f'height="{_num(h)}" fill="{PALETTE[0]}"/>'
-        )
+        h = bottom - sy(n)
+        if n:
+            lines.append(
+                f'<rect x="{_num(x + width * 0.15)}" y="{_num(bottom - h)}" width="{_num(width * 0.7)}" '
+                f'height="{_num(h)}" fill="{PALETTE[0]}"/>'
+            )
         lines.append(f'<text x="{_num(x + width / 2)}" y="{_num(bottom - h - 4)}" text-anchor="middle">{n}</text>')
         lines.append(
             f'<text x="{_num(x + width / 2)}" y="{bottom + 14}" text-anchor="end" '
