@@ -92,7 +92,7 @@ def test_pool_by_theme_fits_100_columns() -> None:
     _, effects = load_archive_effects(DEMO)
     memo = build_pool_memo(pool(effects, "theme"))
     console, buffer = _console()
-    render_terminal(memo, console, plain=False)
+    render_terminal(memo, console, plain=False, details=True)
     _assert_fits(buffer.getvalue(), _memo_tables(memo))
 
 
