@@ -325,3 +325,22 @@ def test_nothing_deserialises_code() -> None:
         if pattern.search(path.read_text(encoding="utf-8"))
     ]
     assert offenders == []
+
+
+def test_csv_from_every_command_with_a_table(demo_db: str) -> None:
+    import csv
+    import io
+
+    records = str(ROOT / "records")
+    for args, first in (
+        (["analyze", RECORD, "-f", "csv"], "arm"),
+        (["pool", "-f", "csv"], "group"),
+        (["calibrate", "-f", "csv"], "low"),
+        (["list", "--csv"], "id"),
+        (["themes", "--csv"], "value"),
+        (["plan", "--minimum-lift", "5%", "--baseline", "0.03", "-f", "csv"], "baseline"),
+    ):
+        code, out, err = run(*args, "--records", records)
+        assert code == 0, (args, err)
+        rows = list(csv.reader(io.StringIO(out)))
+        assert rows[0][0] == first and len(rows) >= 2 and all(len(r) == len(rows[0]) for r in rows), args

@@ -11,7 +11,18 @@ from typing import TYPE_CHECKING, Annotated, Any
 
 import typer
 
-from archive.cli.common import DbOption, NoSyncOption, RecordsOption, err, open_archive, out, ready, user_errors
+from archive.cli.common import (
+    DbOption,
+    Format,
+    NoSyncOption,
+    RecordsOption,
+    emit_rows,
+    err,
+    open_archive,
+    out,
+    ready,
+    user_errors,
+)
 from archive.cli.values import share_option
 from archive.render.markdown import render_markdown
 from archive.render.terminal import render_terminal
@@ -30,6 +41,7 @@ class MemoFormat(StrEnum):
     table = "table"
     json = "json"
     markdown = "markdown"
+    csv = "csv"
 
 
 def analyze(
@@ -37,7 +49,9 @@ def analyze(
     file: Annotated[
         Path | None, typer.Option("--file", help="Analyse this record file instead (not yet filed).")
     ] = None,
-    fmt: Annotated[MemoFormat, typer.Option("--format", "-f", help="table, json or markdown.")] = MemoFormat.table,
+    fmt: Annotated[
+        MemoFormat, typer.Option("--format", "-f", help="table, json, markdown or csv (one row per arm).")
+    ] = MemoFormat.table,
     plot: Annotated[
         Path | None, typer.Option("--plot", help="Write the posterior lift plot here (.svg or .png).")
     ] = None,
@@ -100,6 +114,10 @@ def analyze(
         written = _plots(result, plot, forest, settings)
     if fmt is MemoFormat.json:
         sys.stdout.write(json.dumps(_json(result), indent=2, ensure_ascii=False) + "\n")
+    elif fmt is MemoFormat.csv:
+        from archive.render.analysis import ARM_COLUMNS, arm_rows
+
+        emit_rows(arm_rows(result.analysis), ARM_COLUMNS, Format.csv)
     else:
         memo = result.memo
         if result.history is not None:

@@ -10,7 +10,18 @@ from typing import Annotated
 import typer
 
 from archive.cli.analyze import MemoFormat
-from archive.cli.common import DbOption, NoSyncOption, RecordsOption, err, open_archive, out, ready, user_errors
+from archive.cli.common import (
+    DbOption,
+    Format,
+    NoSyncOption,
+    RecordsOption,
+    emit_rows,
+    err,
+    open_archive,
+    out,
+    ready,
+    user_errors,
+)
 from archive.cli.values import share_option
 from archive.render.markdown import render_markdown
 from archive.render.terminal import render_terminal
@@ -76,7 +87,7 @@ def plan(
     correction: Annotated[str, typer.Option(help="bonferroni or dunnett, for several treatments.")] = "bonferroni",
     write: Annotated[str | None, typer.Option(help="Save the plan as a new planned record with this id.")] = None,
     title: Annotated[str | None, typer.Option(help="Title of the record written by --write.")] = None,
-    fmt: Annotated[MemoFormat, typer.Option("--format", "-f", help="table, json or markdown.")] = MemoFormat.table,
+    fmt: Annotated[MemoFormat, typer.Option("--format", "-f", help="table, json, markdown or csv.")] = MemoFormat.table,
     records: RecordsOption = None,
     db: DbOption = None,
     no_sync: NoSyncOption = False,
@@ -115,6 +126,9 @@ def plan(
             _write_plan(archive.records_dir, write, title, page_area, theme, result, weights, history)
     if fmt is MemoFormat.json:
         sys.stdout.write(json.dumps(asdict(result), indent=2) + "\n")
+    elif fmt is MemoFormat.csv:
+        row = {k: v for k, v in asdict(result).items() if not isinstance(v, dict | list)}
+        emit_rows([row], list(row), Format.csv)
     elif fmt is MemoFormat.markdown:
         sys.stdout.write(render_markdown(plan_memo(result)))
     else:
@@ -136,7 +150,7 @@ def _write_plan(records, record_id, title, page_area, theme, result, weights, hi
 
 
 def calibrate(
-    fmt: Annotated[MemoFormat, typer.Option("--format", "-f", help="table, json or markdown.")] = MemoFormat.table,
+    fmt: Annotated[MemoFormat, typer.Option("--format", "-f", help="table, json, markdown or csv.")] = MemoFormat.table,
     records: RecordsOption = None,
     db: DbOption = None,
     no_sync: NoSyncOption = False,
@@ -150,6 +164,11 @@ def calibrate(
         result = archive.calibrate()
     if fmt is MemoFormat.json:
         sys.stdout.write(json.dumps(result.to_dict(), indent=2) + "\n")
+    elif fmt is MemoFormat.csv:  # the reliability table: forecast bins against what happened
+        bins = [asdict(b) for b in result.reliability]
+        emit_rows(
+            bins, ["low", "high", "forecasts", "mean_forecast", "observed", "observed_low", "observed_high"], Format.csv
+        )
     elif fmt is MemoFormat.markdown:
         sys.stdout.write(render_markdown(calibration_memo(result)))
     else:

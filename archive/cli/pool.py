@@ -11,7 +11,18 @@ from typing import Annotated
 import typer
 
 from archive.cli.analyze import MemoFormat
-from archive.cli.common import DbOption, NoSyncOption, RecordsOption, err, open_archive, out, ready, user_errors
+from archive.cli.common import (
+    DbOption,
+    Format,
+    NoSyncOption,
+    RecordsOption,
+    emit_rows,
+    err,
+    open_archive,
+    out,
+    ready,
+    user_errors,
+)
 from archive.render.markdown import render_markdown
 from archive.render.terminal import render_terminal
 
@@ -31,7 +42,9 @@ def pool(
     ] = Method.REML,
     hksj: Annotated[bool, typer.Option(help="Hartung-Knapp-Sidik-Jonkman interval (t, k-1 df).")] = True,
     include_untrusted: Annotated[bool, typer.Option(help="Keep tests that failed a trust check.")] = False,
-    fmt: Annotated[MemoFormat, typer.Option("--format", "-f", help="table, json or markdown.")] = MemoFormat.table,
+    fmt: Annotated[
+        MemoFormat, typer.Option("--format", "-f", help="table, json, markdown or csv (one row per group).")
+    ] = MemoFormat.table,
     plots: Annotated[
         Path | None, typer.Option(help="Write a forest plot per group and a funnel plot here (SVG).")
     ] = None,
@@ -59,6 +72,10 @@ def pool(
             written.append(funnel_plot(result, plots / "funnel.svg"))
     if fmt is MemoFormat.json:
         sys.stdout.write(json.dumps(result.to_dict(), indent=2, ensure_ascii=False) + "\n")
+    elif fmt is MemoFormat.csv:
+        from archive.render.pooling import GROUP_COLUMNS, group_rows
+
+        emit_rows(group_rows(result), GROUP_COLUMNS, Format.csv)
     elif fmt is MemoFormat.markdown:
         sys.stdout.write(render_markdown(build_pool_memo(result)))
     else:

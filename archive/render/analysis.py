@@ -267,3 +267,59 @@ def segment_sections(seg: SegmentAnalysis) -> list[Section]:
     if seg.dimensions:
         sections[-1].bullets += seg.notes
     return sections
+
+
+ARM_COLUMNS = (
+    "arm",
+    "control",
+    "visitors",
+    "conversions",
+    "rate",
+    "lift",
+    "lift_low",
+    "lift_high",
+    "p_value",
+    "p_holm",
+    "prob_beat_control",
+    "prob_best",
+    "expected_loss",
+    "verdict",
+    "revenue_per_visitor",
+    "rpv_lift",
+    "rpv_lift_low",
+    "rpv_lift_high",
+    "currency",
+)
+
+
+def arm_rows(a: Analysis) -> list[dict[str, object]]:
+    """One row per arm with its unrounded figures (the CSV of ``archive analyze``)."""
+    by_arm = {c.arm: c for c in a.comparisons}
+    rows = []
+    for arm in a.arms:
+        c = by_arm.get(arm.name)
+        r = c.revenue if c is not None else None
+        rows.append(
+            {
+                "arm": arm.name,
+                "control": arm.control,
+                "visitors": arm.visitors,
+                "conversions": arm.conversions,
+                "rate": arm.rate,
+                "lift": None if c is None else c.lift,
+                "lift_low": None if c is None else c.lift_low,
+                "lift_high": None if c is None else c.lift_high,
+                "p_value": None if c is None else c.p_value,
+                "p_holm": None if c is None else c.p_holm,
+                "prob_beat_control": None if c is None else c.prob_beat_control,
+                "prob_best": arm.prob_best,
+                "expected_loss": arm.expected_loss,
+                "verdict": "control" if c is None else c.verdict,
+                "revenue_per_visitor": arm.revenue_per_visitor,
+                "rpv_lift": None if r is None else r.lift,
+                "rpv_lift_low": None if r is None else r.lift_low,
+                "rpv_lift_high": None if r is None else r.lift_high,
+                "currency": a.settings.get("currency"),
+            }
+        )
+    return rows

@@ -171,3 +171,48 @@ def build_pool_memo(p: PoolResult) -> Memo:
         Section("Conventions and assumptions", bullets=[p.interval, p.prediction_convention, *p.assumptions])
     )
     return Memo(f"Pooled archive by {p.by}", lead, sections)
+
+
+GROUP_COLUMNS = (
+    "group",
+    "comparisons",
+    "tests",
+    "lift",
+    "lift_low",
+    "lift_high",
+    "prediction_low",
+    "prediction_high",
+    "tau2",
+    "i_squared",
+    "winners",
+    "win_rate",
+    "win_rate_low",
+    "win_rate_high",
+    "shipped",
+    "too_few",
+)
+
+
+def group_rows(p: PoolResult) -> list[dict[str, object]]:
+    """One row per group with its unrounded figures (the CSV of ``archive pool``)."""
+    return [
+        {
+            "group": g.key,
+            "comparisons": g.comparisons,
+            "tests": g.tests,
+            "lift": g.lift,
+            "lift_low": g.lift_low,
+            "lift_high": g.lift_high,
+            "prediction_low": g.prediction_low,
+            "prediction_high": g.prediction_high,
+            "tau2": g.tau2,
+            "i_squared": g.i_squared,
+            "winners": g.wins.count,
+            "win_rate": g.wins.shrunk,
+            "win_rate_low": g.wins.shrunk_low,
+            "win_rate_high": g.wins.shrunk_high,
+            "shipped": g.shipped.count,
+            "too_few": g.warning is not None,
+        }
+        for g in p.groups
+    ]
