@@ -191,13 +191,15 @@ def show(
     if fmt is not Format.table:
         sys.stdout.write(json.dumps(record.model_dump(mode="json"), indent=2, ensure_ascii=False) + "\n")
         return
-    _print_record(record)
+    _print_record(record, archive.settings.currency)
 
 
-def _print_record(r: Record) -> None:
+def _print_record(r: Record, currency: str) -> None:
     from rich.markup import escape
     from rich.table import Table
     from rich.text import Text
+
+    from archive.render.formats import money
 
     out.print(f"[bold]{escape(r.title)}[/bold]  ({escape(r.id)})")
     out.print(
@@ -209,13 +211,13 @@ def _print_record(r: Record) -> None:
         out.print(f"iterates on {r.iterates_on}", markup=False)
     out.print(f"\nHypothesis: {r.hypothesis_text()}", markup=False)
     table = Table(header_style="bold")
-    for column in ("arm", "visitors", "conversions", "rate", "orders", "revenue", "revenue/visitor"):
+    for column in ("arm", "visitors", "conversions", "rate", "orders", f"revenue ({currency})", "revenue/visitor"):
         table.add_column(column, justify="left" if column == "arm" else "right")
     for arm in r.arms:
         rate = f"{arm.conversions / arm.visitors:.2%}" if arm.visitors and arm.conversions is not None else ""
-        rpv = f"{arm.revenue / arm.visitors:.3f}" if arm.visitors and arm.revenue is not None else ""
+        rpv = money(arm.revenue / arm.visitors, currency=currency) if arm.visitors and arm.revenue is not None else ""
         table.add_row(
-            Text(arm.name + (" (control)" if arm.control else "")),
+            Text(arm.name + (" (control)" if arm.control and arm.name != "control" else "")),
             *("" if v is None else f"{v:,}" for v in (arm.visitors, arm.conversions)),
             rate,
             "" if arm.orders is None else f"{arm.orders:,}",
