@@ -13,6 +13,9 @@ from archive.cli.common import RecordsOption, err, show_progress, user_errors
 app = typer.Typer(help="Publish the archive as a browsable site (MkDocs).", no_args_is_help=True)
 
 OutOption = Annotated[Path, typer.Option("--out", help="Output folder (docs/, mkdocs.yml, html/).")]
+ForceOption = Annotated[
+    bool, typer.Option("--force", help="Build in an --out folder that holds files the site did not write.")
+]
 
 
 @app.command("build")
@@ -20,6 +23,7 @@ def build(
     out: OutOption = Path("site-build"),
     title: Annotated[str, typer.Option(help="Site title.")] = "Test archive",
     records: RecordsOption = Path("records"),
+    force: ForceOption = False,
 ) -> None:
     """Generate Markdown and SVG from the archive and build the HTML site."""
     from archive.site.build import build_site
@@ -27,7 +31,9 @@ def build(
 
     with user_errors():
         try:
-            report = build_site(records, out, title, progress=(lambda m: err.print(m)) if show_progress() else None)
+            report = build_site(
+                records, out, title, progress=(lambda m: err.print(m)) if show_progress() else None, force=force
+            )
         except MkDocsProblems as exc:
             for message in exc.messages:
                 err.print(f"mkdocs: {message}", markup=False)
@@ -45,17 +51,25 @@ def serve(
     out: OutOption = Path("site-build"),
     port: Annotated[int, typer.Option(help="Port on localhost.")] = 8000,
     records: RecordsOption = Path("records"),
+    force: ForceOption = False,
 ) -> None:
     """Build, then serve the site on http://127.0.0.1:PORT until interrupted."""
-    import functools
-    import http.server
-
     from archive.site.build import build_site
+    from archive.site.engine import MkDocsProblems
+    from archive.site.serve import build_problem_line, open_server
 
     with user_errors():
-        report = build_site(records, out)
-    handler = functools.partial(http.server.SimpleHTTPRequestHandler, directory=str(report.html))
-    with http.server.ThreadingHTTPServer(("127.0.0.1", port), handler) as server:
-        err.print(f"serving {report.html} at http://127.0.0.1:{port}/ (Ctrl-C to stop)")
+        server = open_server(out / "html", port)
+        try:
+            report = build_site(records, out, force=force)
+        except MkDocsProblems as exc:
+            server.server_close()
+            err.print(f"error: {build_problem_line(exc)}", markup=False)
+            raise typer.Exit(1) from None
+        except BaseException:
+            server.server_close()
+            raise
+    with server:
+        err.print(f"serving {report.html} at http://127.0.0.1:{port}/ (Ctrl-C to stop)", markup=False)
         with contextlib.suppress(KeyboardInterrupt):
             server.serve_forever()

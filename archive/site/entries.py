@@ -26,6 +26,7 @@ from archive.records.yamlsource import YamlDocument, YamlProblem, read_yaml
 from archive.render.analysis import build_memo
 from archive.render.markdown import markdown_sections
 from archive.site import svg
+from archive.site.names import segment_chart_name
 from archive.stats import bayes
 
 CACHE_VERSION = "1"
@@ -103,7 +104,7 @@ def build_entry(loaded: LoadedRecord, digest: str, settings: Settings) -> TestEn
                             (f"{d.dimension}: all", m.adjusted_lift, m.adjusted_low, m.adjusted_high or 0.0, True)
                         )
             if rows:
-                charts[f"{record.id}-segments-{c.arm}.svg"] = svg.forest_chart(rows, f"{c.arm} by segment")
+                charts[segment_chart_name(record.id, c.arm)] = svg.forest_chart(rows, f"{c.arm} by segment")
     rec = analysis.recommendation
     return TestEntry(
         id=record.id,
