@@ -525,3 +525,14 @@ def test_browser_runs_no_record_text(browser, served: str, built: Path) -> None:
     found = [tuple(a) for a in driver.execute_script(_RISKY_JS)]
     assert [a for a in found if a not in TEMPLATE_ATTRIBUTES] == []
     assert driver.execute_script("return document.body !== null")
+
+
+def test_site_title_is_escaped_in_the_config() -> None:
+    import html
+
+    import yaml  # PyYAML, the loader MkDocs reads its configuration with
+
+    from archive.site.build import mkdocs_config
+
+    title = "<b onmouseover=alert(1)>Brindlewick</b> \"Home\" 'archive' { autofocus }"
+    assert yaml.safe_load(mkdocs_config(title))["site_name"] == html.escape(title)
