@@ -22,6 +22,9 @@ from archive.cli.common import (
 app = typer.Typer(help="Publish the archive as a browsable site (MkDocs).", no_args_is_help=True)
 
 OutOption = Annotated[Path, typer.Option("--out", help="Output folder (docs/, mkdocs.yml, html/).")]
+ForceOption = Annotated[
+    bool, typer.Option("--force", help="Build in an --out folder that holds files the site did not write.")
+]
 
 
 @app.command("build")
@@ -31,6 +34,7 @@ def build(
     records: RecordsOption = None,
     db: DbOption = None,
     no_sync: NoSyncOption = False,
+    force: ForceOption = False,
 ) -> None:
     """Generate Markdown and SVG from the store and build the HTML site."""
     from archive.site.engine import MkDocsProblems
@@ -39,7 +43,9 @@ def build(
         archive = open_archive(records, db, no_sync)
         ready(archive)
         try:
-            report = archive.build_site(out, title, progress=(lambda m: err.print(m)) if show_progress() else None)
+            report = archive.build_site(
+                out, title, progress=(lambda m: err.print(m)) if show_progress() else None, force=force
+            )
         except MkDocsProblems as exc:
             for message in exc.messages:
                 err.print(f"mkdocs: {message}", markup=False)
@@ -59,17 +65,26 @@ def serve(
     records: RecordsOption = None,
     db: DbOption = None,
     no_sync: NoSyncOption = False,
+    force: ForceOption = False,
 ) -> None:
     """Build, then serve the site on http://127.0.0.1:PORT until interrupted."""
-    import functools
-    import http.server
+    from archive.site.engine import MkDocsProblems
+    from archive.site.serve import build_problem_line, open_server
 
     with user_errors():
-        archive = open_archive(records, db, no_sync)
-        ready(archive)
-        report = archive.build_site(out)
-    handler = functools.partial(http.server.SimpleHTTPRequestHandler, directory=str(report.html))
-    with http.server.ThreadingHTTPServer(("127.0.0.1", port), handler) as server:
-        err.print(f"serving {report.html} at http://127.0.0.1:{port}/ (Ctrl-C to stop)")
+        server = open_server(out / "html", port)  # a busy port is reported before any work
+        try:
+            archive = open_archive(records, db, no_sync)
+            ready(archive)
+            report = archive.build_site(out, force=force)
+        except MkDocsProblems as exc:
+            server.server_close()
+            err.print(f"error: {build_problem_line(exc)}", markup=False)
+            raise typer.Exit(1) from None
+        except BaseException:
+            server.server_close()
+            raise
+    with server:
+        err.print(f"serving {report.html} at http://127.0.0.1:{port}/ (Ctrl-C to stop)", markup=False)
         with contextlib.suppress(KeyboardInterrupt):
             server.serve_forever()

@@ -48,15 +48,21 @@ def interval_plain_rate(r) -> str:  # type: ignore[no-untyped-def]
     return f"[{pct(r.low, 0)}, {pct(r.high, 0)}]"
 
 
-_MD_SPECIAL = re.compile(r"([\\`*_\[\]|~])")
+# Characters Markdown or an extension of the site reads as syntax anywhere in a line: backslash escapes (all in
+# Python-Markdown's escapable set: code, emphasis, links and images, attribute lists, table cells); ``~`` is not
+# escapable there, so it becomes a character reference (fenced code). ``<`` and ``&`` are HTML-escaped first.
+_MD_SPECIAL = re.compile(r"([\\`*_{}\[\]|])")
 
 
 _MD_LINE_START = re.compile(r"^(?:([#+\-=])(?=\s|$)|(>)|(\d+)([.)])(?=\s|$))")
 
+_CONTROL = re.compile(r"[\x00-\x1f\x7f-\x9f]")
+
 
 def md_text(text: str) -> str:
-    """Text from a record made safe for Markdown and HTML: one line, HTML escaped, Markdown syntax escaped (so
-    no raw HTML, link, emphasis or table cell break survives)."""
-    one_line = " ".join(text.split())
-    escaped = _MD_SPECIAL.sub(r"\\\1", html.escape(one_line, quote=False))
+    """Text from a record made safe for Markdown and HTML: one line, control characters dropped, HTML escaped,
+    Markdown syntax escaped (so no raw HTML, link, emphasis, attribute list, code fence or table cell break
+    survives)."""
+    one_line = " ".join(_CONTROL.sub(" ", text).split())
+    escaped = _MD_SPECIAL.sub(r"\\\1", html.escape(one_line, quote=False)).replace("~", "&#126;")
     return _MD_LINE_START.sub(lambda m: "\\" + (m[1] or m[2]) if m[1] or m[2] else m[3] + "\\" + m[4], escaped)

@@ -23,9 +23,10 @@ class _Collect(logging.Handler):
         self.messages.append(record.getMessage())
 
 
-def run_mkdocs_build(config_file: Path, strict: bool = True) -> Path:
-    """Build the site described by ``config_file``; with ``strict``, any MkDocs warning (a broken link, a missing
-    file) is an error. Returns the folder of the built HTML."""
+def run_mkdocs_build(config_file: Path, strict: bool = True, site_dir: Path | None = None) -> Path:
+    """Build the site described by ``config_file`` (into ``site_dir`` when given, instead of the configured
+    folder); with ``strict``, any MkDocs warning (a broken link, a missing file) is an error. Returns the folder
+    of the built HTML."""
     from mkdocs.commands.build import build
     from mkdocs.config import load_config
 
@@ -35,7 +36,7 @@ def run_mkdocs_build(config_file: Path, strict: bool = True) -> Path:
     logger = logging.getLogger("mkdocs")
     logger.addHandler(collector)
     try:
-        config = load_config(str(config_file))
+        config = load_config(str(config_file), **({"site_dir": str(site_dir)} if site_dir is not None else {}))
         build(config)
     finally:
         logger.removeHandler(collector)

@@ -19,6 +19,7 @@ from archive.records.model import Record, record_from_json
 from archive.render.analysis import build_memo
 from archive.render.markdown import markdown_sections
 from archive.site import layout, svg
+from archive.site.names import segment_chart_name
 from archive.stats import bayes
 from archive.store.tables import ANALYSIS, RECORD
 
@@ -87,7 +88,7 @@ def _entry(
                             (f"{d.dimension}: all", m.adjusted_lift, m.adjusted_low, m.adjusted_high or 0.0, True)
                         )
             if rows:
-                charts[f"{record.id}-segments-{c.arm}.svg"] = svg.forest_chart(rows, f"{c.arm} by segment")
+                charts[segment_chart_name(record.id, c.arm)] = svg.forest_chart(rows, f"{c.arm} by segment")
     rec = analysis.recommendation
     return TestEntry(
         id=record.id,

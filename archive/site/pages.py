@@ -9,15 +9,17 @@ other than the records' own.
 from __future__ import annotations
 
 import datetime as dt
+import re
 from collections import defaultdict
 from dataclasses import dataclass
 
 from archive.planning.priors import lift_prior
 from archive.pooling.groups import GroupResult, PoolResult
-from archive.records.model import Record, canonical_label, record_from_json
+from archive.records.model import Record, record_from_json
 from archive.render.formats import interval, md_text, pct
 from archive.site import layout, svg
 from archive.site.entries import TestEntry
+from archive.site.names import slug
 
 
 @dataclass
@@ -46,10 +48,6 @@ def site_data(entries: list[TestEntry], by_theme: PoolResult | None, by_area: Po
     return SiteData(entries, records, by_theme, by_area, {k: sorted(v) for k, v in follow.items()}, shrunk)
 
 
-def slug(text: str) -> str:
-    return canonical_label(text) or "unnamed"
-
-
 def test_link(record: Record, prefix: str = "../tests/") -> str:
     return f"[{md_text(record.title)}]({prefix}{record.id}.md)"
 
@@ -58,11 +56,13 @@ def _label_links(values: list[str], folder: str, prefix: str = "../") -> str:
     return ", ".join(f"[{md_text(v)}]({prefix}{folder}/{slug(v)}.md)" for v in values)
 
 
+_URL = re.compile(r"https?://[\w\-.~:/?#@!$&*+,;=%]+", re.IGNORECASE)
+
+
 def _safe_url(url: str) -> str | None:
-    lowered = url.strip().lower()
-    if not lowered.startswith(("http://", "https://")) or any(c in url for c in "<>\"' ()\n"):
-        return None
-    return url.strip()
+    """The link if it is plain http(s) made of URL characters only (no quote, bracket, brace, space or pipe that
+    Markdown or HTML could read), otherwise None: such links are dropped."""
+    return url.strip() if _URL.fullmatch(url.strip()) else None
 
 
 # --- one page per test ----------------------------------------------------------------------------------
@@ -81,7 +81,7 @@ def test_page(entry: TestEntry, data: SiteData) -> str:
         facts.append(f"owner {md_text(r.owner)}")
     out += [" · ".join(facts), ""]
     if r.tags:
-        out += ["Tags: " + ", ".join(f"[{md_text(t)}](../tags.md#{slug(t)})" for t in r.tags), ""]
+        out += ["Tags: " + _label_links(r.tags, "tags"), ""]
     out += ["## Hypothesis", "", md_text(r.hypothesis_text()), ""]
     out += _plan_section(r)
     if not layout.shows_verdict(r):
@@ -401,17 +401,29 @@ def learnings_page(data: SiteData) -> str:
     return "\n".join(out).rstrip() + "\n"
 
 
-def tags_page(data: SiteData) -> str:
-    out = ["# Tags", ""]
+def _by_tag(data: SiteData) -> dict[str, list[Record]]:
     by_tag: dict[str, list[Record]] = defaultdict(list)
     for r in data.records.values():
         for tag in r.tags:
             by_tag[tag].append(r)
-    for tag in sorted(by_tag):
-        out += [f"## {md_text(tag)} {{#{slug(tag)}}}", ""]
-        out += [f"- {test_link(r, 'tests/')}" for r in sorted(by_tag[tag], key=lambda x: x.id)]
-        out.append("")
+    return by_tag
+
+
+def tags_page(data: SiteData) -> str:
+    out = ["# Tags", "", "Every tag, with the number of tests that carry it.", ""]
+    by_tag = _by_tag(data)
+    out += [f"- [{md_text(tag)}](tags/{slug(tag)}.md) ({len(by_tag[tag])})" for tag in sorted(by_tag)]
     return "\n".join(out).rstrip() + "\n"
+
+
+def tag_pages(data: SiteData) -> dict[str, str]:
+    """One page per tag (file name -> Markdown), listing its tests."""
+    pages = {}
+    for tag, records in _by_tag(data).items():
+        out = [f"# Tag: {md_text(tag)}", "", "[All tags](../tags.md)", ""]
+        out += [f"- {test_link(r)}" for r in sorted(records, key=lambda x: x.id)]
+        pages[f"{slug(tag)}.md"] = "\n".join(out) + "\n"
+    return pages
 
 
 def home_page(data: SiteData, latest: int = 8) -> str:
