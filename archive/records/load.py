@@ -7,6 +7,7 @@ from __future__ import annotations
 import difflib
 import gc
 import os
+import stat
 import types
 import typing
 from collections.abc import Callable, Hashable, Iterator, Sequence
@@ -21,7 +22,7 @@ from archive.records.checks import RecordChecks, Summary, archive_problems
 from archive.records.model import Record
 from archive.records.orders import Orders
 from archive.records.problems import Problem
-from archive.records.yamlsource import YamlDocument, YamlProblem, dotted, parse_yaml
+from archive.records.yamlsource import MAX_RECORD_BYTES, YamlDocument, YamlProblem, dotted, parse_yaml, too_large
 
 RECORD_SUFFIXES = (".yaml", ".yml")
 
@@ -46,20 +47,99 @@ class CheckReport:
 
 
 def record_files(records_dir: Path) -> list[Path]:
-    """The record files of an archive folder (top level only), sorted."""
+    """The record files of an archive folder (top level only), sorted.
+
+    Only regular files are listed (a symbolic link counts when it points to a file inside the folder): a folder,
+    a dangling link or a link that leaves the folder named like a record is not read; `check` reports it (see
+    :func:`unusable_record_paths`).
+    """
+    return _scan(records_dir)[0]
+
+
+def unusable_record_paths(records_dir: Path) -> list[Problem]:
+    """Entries of the records folder named like a record that are not read as one, each with the reason."""
+    return _scan(records_dir)[1]
+
+
+def _scan(records_dir: Path) -> tuple[list[Path], list[Problem]]:
     if not records_dir.is_dir():
         raise FileNotFoundError(f"records folder {records_dir} does not exist; create it or pass --records")
-    found = [p for p in records_dir.iterdir() if p.suffix in RECORD_SUFFIXES and p.is_file()]
+    found: list[Path] = []
+    unusable: list[Problem] = []
+    folder: Path | None = None
+    with os.scandir(records_dir) as entries:
+        for entry in entries:
+            if not entry.name.endswith(RECORD_SUFFIXES):
+                continue
+            path = records_dir / entry.name
+            if not entry.is_symlink() and entry.is_file():  # the common case: no further system call
+                found.append(path)
+                continue
+            if folder is None:
+                folder = records_dir.resolve()
+            reason = _unusable(path, folder)
+            if reason is None:
+                found.append(path)
+            else:
+                unusable.append(Problem(str(path), 0, "", reason))
     # Paths in one folder sort as their names do (case-folded where the OS folds case); the key spares the
     # slow comparison of whole paths.
-    return sorted(found, key=lambda p: os.path.normcase(p.name))
+    found.sort(key=lambda p: os.path.normcase(p.name))
+    return found, unusable
+
+
+def _unusable(path: Path, folder: Path) -> str | None:
+    """Why ``path`` (in ``folder``, resolved) is not read as a record file, or None when it is readable."""
+    try:
+        if path.is_symlink():
+            target = Path(os.readlink(path))
+            resolved = path.resolve()
+            if not resolved.exists():
+                return f"is a symbolic link to {target}, which does not exist; remove the link or restore the file"
+            if not resolved.is_relative_to(folder):
+                return (
+                    f"is a symbolic link to {resolved}, outside the records folder; it is not followed "
+                    "(copy the record into the folder)"
+                )
+        mode = path.stat().st_mode
+    except (OSError, RuntimeError) as exc:  # RuntimeError: a loop of symbolic links
+        return f"cannot be read ({exc.strerror if isinstance(exc, OSError) else 'a loop of symbolic links'})"
+    if stat.S_ISDIR(mode):
+        return "is a folder, not a record file; rename it so its name does not end in .yaml or .yml"
+    if not stat.S_ISREG(mode):
+        return "is not a regular file (a device, pipe or socket); it is not read"
+    return None
+
+
+def _read_record(path: Path) -> bytes:
+    """The bytes of a record file, refusing before any read what no record can be. Raises :class:`YamlProblem`."""
+    where = str(path)
+    try:
+        mode = os.lstat(path).st_mode
+    except OSError as exc:
+        raise YamlProblem(Problem(where, 0, "", f"cannot be read ({exc.strerror or exc})")) from None
+    if not stat.S_ISREG(mode):  # a link, a folder, a pipe: look closer before opening anything
+        reason = _unusable(path, path.parent.resolve())
+        if reason is not None:
+            raise YamlProblem(Problem(where, 0, "", reason))
+    try:
+        with path.open("rb") as handle:
+            size = os.fstat(handle.fileno()).st_size
+            if size > MAX_RECORD_BYTES:
+                raise YamlProblem(too_large(where, size))
+            return handle.read(MAX_RECORD_BYTES + 1)
+    except OSError as exc:
+        raise YamlProblem(Problem(where, 0, "", f"cannot be read ({exc.strerror or exc})")) from None
 
 
 def load_record(path: Path, raw: bytes | None = None) -> tuple[LoadedRecord | None, list[Problem]]:
-    """Parse and check one record file. Returns the record (None if it cannot be built) and its problems."""
+    """Parse and check one record file. Returns the record (None if it cannot be built) and its problems.
+
+    Given ``raw``, those bytes are checked as the content of ``path`` and the file is not read.
+    """
     where = str(path)
     try:
-        doc = parse_yaml(where, path.read_bytes() if raw is None else raw)
+        doc = parse_yaml(where, _read_record(path) if raw is None else raw)
     except YamlProblem as exc:
         return None, exc.problems
     try:
@@ -81,16 +161,34 @@ def _from_pydantic(doc: YamlDocument, err: Any) -> Problem:
         message = f"unknown field {loc[-1]!r}{hint}"
     elif kind == "missing":
         message = "required field is missing"
+    elif loc in doc.number_notes:  # written in a number form that readers disagree on, kept as text
+        message = doc.number_notes[loc]
+    elif kind == "int_type" and isinstance(err.get("input"), float):
+        message = f"expected a whole number in decimal digits, like 31722 (got {err['input']!r})"
+    elif kind in ("less_than_equal", "less_than", "greater_than_equal", "greater_than") and "ctx" in err:
+        bound = next(iter(err["ctx"].values()))
+        sign = {"less_than_equal": "at most", "less_than": "below", "greater_than_equal": "at least"}
+        shown = f"{bound:,}" if isinstance(bound, int) else f"{bound:,g}"
+        message = f"must be {sign.get(kind, 'above')} {shown} (got {_shown(err.get('input'))})"
+        if kind in ("less_than_equal", "less_than"):
+            message += "; that is the limit for this field"
+    elif kind == "too_long" and "ctx" in err and isinstance(err.get("input"), list):
+        message = f"holds {len(err['input'])} items; the limit is {err['ctx'].get('max_length')}"
     else:
-        shown = repr(err.get("input"))
-        if len(shown) > 40:
-            shown = shown[:37] + "..."
+        shown = _shown(err.get("input"))
         message = f"{err['msg']} (got {shown})"
         if kind == "string_type" and isinstance(err.get("input"), bool):
             message += "; YAML reads yes/no/on/off as true/false: put the word in quotes"
         if kind == "date_type" and isinstance(err.get("input"), str):
             message = f"expected a date written YYYY-MM-DD without quotes (got {shown})"
     return Problem(doc.path, doc.line_of(loc), dotted(loc), message)
+
+
+def _shown(value: Any) -> str:
+    if isinstance(value, int) and not isinstance(value, bool) and abs(value) >= 10**15:
+        return f"{value:.3g}"  # a count of 31 digits reads better as 1e+30
+    shown = repr(value)
+    return shown if len(shown) <= 40 else shown[:37] + "..."
 
 
 def _fields_at(loc: Sequence[Hashable]) -> list[str]:
@@ -142,8 +240,9 @@ def gc_paused() -> Iterator[None]:
 def check_archive(records_dir: Path, progress: Callable[[int], None] | None = None) -> CheckReport:
     """Check every record of a folder. Never writes."""
     report = CheckReport()
-    paths = record_files(records_dir)
-    report.files = len(paths)
+    paths, unusable = _scan(records_dir)
+    report.problems.extend(unusable)
+    report.files = len(paths) + len(unusable)
     failed: list[str] = []
     for path in paths:
         loaded, problems = load_record(path)
