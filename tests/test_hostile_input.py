@@ -13,7 +13,8 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import pytest
-from typer.testing import CliRunner
+import typer
+from click.testing import CliRunner
 
 from archive.cli.main import app
 from archive.records.load import check_archive, load_record, record_files
@@ -21,6 +22,7 @@ from archive.records.model import canonical_label
 from tests.conftest import good_text, snapshot
 
 runner = CliRunner()
+COMMAND = typer.main.get_command(app)  # built once: typer's own runner rebuilds it on every call
 RECORD = "free-delivery-bar.yaml"
 WITH_ORDERS = good_text().replace("segments:\n", "orders_file: orders.csv\nsegments:\n", 1)
 
@@ -376,7 +378,7 @@ def _build(tmp_path: Path, case: Case) -> tuple[Path, Path]:
 
 
 def _invoke(*args: str) -> tuple[int, str]:
-    result = runner.invoke(app, list(args))
+    result = runner.invoke(COMMAND, list(args))
     if result.exception is not None and not isinstance(result.exception, SystemExit):
         raise result.exception  # a traceback is a failure of the test, shown as such
     return result.exit_code, result.output

@@ -11,7 +11,7 @@ from collections.abc import Callable, Hashable, Iterable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
-from archive.records.model import Record, canonical_label, is_slug
+from archive.records.model import MIN_MONEY, Record, canonical_label, is_slug
 from archive.records.orders import Orders, orders_path, read_orders
 from archive.records.problems import Problem
 from archive.records.yamlsource import YamlDocument, dotted
@@ -122,6 +122,10 @@ class RecordChecks:
                 self.add(here + ("conversions",), f"{arm.conversions} conversions exceed {arm.visitors} visitors")
             if arm.orders is not None and arm.conversions is not None and arm.orders < arm.conversions:
                 self.add(here + ("orders",), f"{arm.orders} orders but {arm.conversions} converting visitors")
+            for name, least in (("revenue", MIN_MONEY), ("revenue_sum_of_squares", MIN_MONEY**2)):
+                amount = getattr(arm, name)
+                if amount is not None and 0 < amount < least:
+                    self.add(here + (name,), f"{amount:g} is above 0 but below {least:g}, the smallest amount")
             if arm.revenue and (arm.conversions == 0 or arm.orders == 0):
                 self.add(here + ("revenue",), "revenue without any conversion or order")
             if arm.revenue_sum_of_squares is not None:
@@ -239,6 +243,8 @@ class RecordChecks:
                         continue
                     if counts.conversions > counts.visitors:
                         self.add(here + ("conversions",), f"{counts.conversions} exceed {counts.visitors} visitors")
+                    if counts.revenue is not None and 0 < counts.revenue < MIN_MONEY:
+                        self.add(here + ("revenue",), f"{counts.revenue:g} is above 0 but below {MIN_MONEY:g}")
                     totals[arm_name]["visitors"] += counts.visitors
                     totals[arm_name]["conversions"] += counts.conversions
                     totals[arm_name]["revenue"] += counts.revenue or 0.0

@@ -31,6 +31,9 @@ MAX_COUNT = 2_000_000_000
 MAX_MONEY = 1e15
 #: sum over visitors of revenue^2: at most (sum of revenue)^2 for amounts >= 0
 MAX_SUM_OF_SQUARES = MAX_MONEY**2
+#: the smallest amount of money above 0 (a millionth of a currency unit); less is a typo, and its square
+#: vanishes in floating point (checked in archive.records.checks)
+MIN_MONEY = 1e-6
 #: planned duration
 MAX_DAYS = 3660
 #: the smallest relative lift worth detecting (10 = +1000%)

@@ -56,7 +56,7 @@ def read_orders(path: Path, arms: set[str]) -> tuple[Orders | None, list[Problem
     """
     where = str(path)
     try:
-        with path.open("rb") as handle:
+        with open(path, "rb", opener=_open_nonblocking) as handle:
             info = os.fstat(handle.fileno())
             if not stat.S_ISREG(info.st_mode):
                 return None, [Problem(where, 0, "", "the orders file is not a regular file")]
@@ -92,6 +92,11 @@ def read_orders(path: Path, arms: set[str]) -> tuple[Orders | None, list[Problem
         return _read_rows(where, reader, arms)
     except csv.Error as exc:
         return None, [Problem(where, reader.line_num, "", _csv_message(exc))]
+
+
+def _open_nonblocking(name: str, flags: int) -> int:
+    """Open without waiting: a named pipe put where a file should be must not hang the reader."""
+    return os.open(name, flags | getattr(os, "O_NONBLOCK", 0))
 
 
 def _csv_message(exc: csv.Error) -> str:

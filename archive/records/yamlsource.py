@@ -282,13 +282,15 @@ def _check_aliases(path: str, root: yaml.Node) -> None:
 
 
 def dotted(loc: Sequence[Hashable]) -> str:
-    """``("arms", 0, "visitors")`` -> ``arms[0].visitors``."""
+    """``("arms", 0, "visitors")`` -> ``arms[0].visitors``; a key with a line break or another unprintable
+    character is shown quoted, so that a problem stays on one line."""
     out = ""
     for part in loc:
         if isinstance(part, int):
             out += f"[{part}]"
         else:
-            out += ("." if out else "") + str(part)
+            text = part if isinstance(part, str) and part.isprintable() else repr(part)
+            out += ("." if out else "") + text
     return out
 
 
@@ -417,19 +419,22 @@ class _Builder:
         if text.lower() in _NOT_FINITE:
             self._problem(node, loc, f"{text!r} is not a finite number")
             return None
+        shown = repr(text if len(text) <= 40 else text[:37] + "...")
+        if text.isprintable() and len(text) <= 40 and "'" not in text:
+            shown = text
         lowered = text.lower().lstrip("+-")
         if lowered.startswith(("0x", "0o", "0b")):
             kind = {"0x": "hexadecimal", "0o": "octal", "0b": "binary"}[lowered[:2]]
-            reason = f"{text} is a {kind} number; write counts and amounts in decimal digits"
+            reason = f"{shown} is a {kind} number; write counts and amounts in decimal digits"
         elif ":" in text:
             reason = (
-                f"{text} is a base-60 number in YAML 1.1 (a time of day to some readers, text to others); "
+                f"{shown} is a base-60 number in YAML 1.1 (a time of day to some readers, text to others); "
                 "write counts and amounts in decimal digits, and quote text"
             )
         elif "_" in text:
-            reason = f"{text}: write numbers without '_' between the digits ({text.replace('_', '')})"
+            reason = f"{shown}: write numbers without '_' between the digits ({shown.replace('_', '')})"
         else:
-            reason = f"{text!r} is not a decimal number"
+            reason = f"{shown} is not a decimal number"
         return self._odd_number(loc, key, text, reason)
 
     def _odd_number(self, loc: PathKey, key: bool, text: str, reason: str) -> str:
