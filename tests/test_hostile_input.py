@@ -525,3 +525,35 @@ def test_emoji_only_theme_is_an_empty_label(records_dir: Path) -> None:
     path.write_text(good_text().replace("  - social-proof", "  - 🚚"), encoding="utf-8")
     code, output = _invoke("check", "--records", str(records_dir))
     assert code == 1 and f"{path}:10: themes[1]: empty label" in output, output
+
+
+def test_orders_row_and_size_limits(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    from archive.records import orders
+
+    path = tmp_path / "orders.csv"
+    path.write_bytes(b"arm,order_id,value\n" + b"".join(b"control,o%d,5\n" % i for i in range(5)))
+    monkeypatch.setattr(orders, "MAX_ORDER_ROWS", 3)
+    found, problems = orders.read_orders(path, {"control"})
+    assert found is None and [(p.line, p.message) for p in problems] == [
+        (5, "more than 3 orders (the limit for one file)")
+    ]
+    monkeypatch.setattr(orders, "MAX_ORDERS_BYTES", 50)
+    found, problems = orders.read_orders(path, {"control"})
+    assert found is None and "is 84 bytes; the limit is 50 bytes" in problems[0].message and problems[0].line == 0
+
+
+@pytest.mark.skipif(not hasattr(os, "mkfifo"), reason="no named pipes on this system")
+def test_orders_reader_does_not_wait_on_a_pipe(tmp_path: Path) -> None:
+    from archive.records.orders import read_orders
+
+    os.mkfifo(tmp_path / "orders.csv")
+    found, problems = read_orders(tmp_path / "orders.csv", {"control"})
+    assert found is None and "not a regular file" in problems[0].message
+
+
+def test_byte_limit_is_checked_before_reading(tmp_path: Path) -> None:
+    path = tmp_path / RECORD
+    with path.open("wb") as handle:  # a sparse 3 GB file: reading it whole would take the memory
+        handle.truncate(3_000_000_000)
+    loaded, problems = load_record(path)
+    assert loaded is None and [p.message.split(";")[0] for p in problems] == ["file is 3000.0 MB"]

@@ -66,7 +66,7 @@ def read_orders(path: Path, arms: set[str]) -> tuple[Orders | None, list[Problem
                         where,
                         0,
                         "",
-                        f"orders file is {info.st_size / 1e6:,.0f} MB; the limit is {MAX_ORDERS_BYTES / 1e6:,.0f} MB",
+                        f"orders file is {info.st_size:,} bytes; the limit is {MAX_ORDERS_BYTES:,} bytes",
                     )
                 ]
             raw = handle.read(MAX_ORDERS_BYTES + 1)
