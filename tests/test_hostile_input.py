@@ -455,10 +455,14 @@ def test_yaml_12_floats_are_read(tmp_path: Path) -> None:
 
 
 def test_number_forms_stay_text_where_text_is_wanted(tmp_path: Path) -> None:
-    text = good_text().replace("owner: basket team", "owner: 8:48:42").replace("tags: [delivery,", "tags: [031722,")
-    loaded, problems = load_record(tmp_path / RECORD, text.encode())
+    text = (
+        good_text().replace("owner: basket team", "owner: 8:48:42").replace("tags: [delivery,", "tags: [031722, 1e3,")
+    )
+    text = text.replace("title: Free delivery threshold on the basket page", "title: 0E0")  # as PyYAML writes '0E0'
+    loaded, problems = load_record(tmp_path / RECORD, text.replace("revenue: 16800.0", "revenue: 1.68e4").encode())
     assert loaded is not None, [str(p) for p in problems]
-    assert loaded.record.owner == "8:48:42" and loaded.record.tags[0] == "031722"
+    assert loaded.record.owner == "8:48:42" and loaded.record.tags[:2] == ["031722", "1e3"]
+    assert loaded.record.title == "0E0" and loaded.record.arms[1].revenue == 16800.0
 
 
 def test_record_files_lists_only_readable_files(tmp_path: Path) -> None:

@@ -115,21 +115,35 @@ def _read_record(path: Path) -> bytes:
     """The bytes of a record file, refusing before any read what no record can be. Raises :class:`YamlProblem`."""
     where = str(path)
     try:
-        mode = os.lstat(path).st_mode
-    except OSError as exc:
-        raise YamlProblem(Problem(where, 0, "", f"cannot be read ({exc.strerror or exc})")) from None
-    if not stat.S_ISREG(mode):  # a link, a folder, a pipe: look closer before opening anything
-        reason = _unusable(path, path.parent.resolve())
-        if reason is not None:
-            raise YamlProblem(Problem(where, 0, "", reason))
-    try:
-        with path.open("rb") as handle:
-            size = os.fstat(handle.fileno()).st_size
-            if size > MAX_RECORD_BYTES:
-                raise YamlProblem(too_large(where, size))
+        with open(path, "rb", opener=_open_plain) as handle:
+            info = os.fstat(handle.fileno())
+            if stat.S_ISREG(info.st_mode):
+                if info.st_size > MAX_RECORD_BYTES:
+                    raise YamlProblem(too_large(where, info.st_size))
+                return handle.read(MAX_RECORD_BYTES + 1)
+    except OSError:
+        pass  # a link (not followed by the first open), a folder, a missing file: looked at closer below
+    reason = _unusable(path, path.parent.resolve())
+    if reason is not None:
+        raise YamlProblem(Problem(where, 0, "", reason))
+    try:  # a link to a file inside the folder
+        with open(path, "rb", opener=_open_nonblocking) as handle:
+            info = os.fstat(handle.fileno())
+            if info.st_size > MAX_RECORD_BYTES:
+                raise YamlProblem(too_large(where, info.st_size))
             return handle.read(MAX_RECORD_BYTES + 1)
     except OSError as exc:
         raise YamlProblem(Problem(where, 0, "", f"cannot be read ({exc.strerror or exc})")) from None
+
+
+def _open_nonblocking(name: str, flags: int) -> int:
+    """Open without waiting: a named pipe where a record should be must not hang the reader."""
+    return os.open(name, flags | getattr(os, "O_NONBLOCK", 0))
+
+
+def _open_plain(name: str, flags: int) -> int:
+    """Open a file that is not a symbolic link, without waiting on a pipe."""
+    return os.open(name, flags | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_NOFOLLOW", 0))
 
 
 def load_record(path: Path, raw: bytes | None = None) -> tuple[LoadedRecord | None, list[Problem]]:
@@ -143,12 +157,31 @@ def load_record(path: Path, raw: bytes | None = None) -> tuple[LoadedRecord | No
     except YamlProblem as exc:
         return None, exc.problems
     try:
-        record = Record.model_validate(doc.data)
+        record = _validate(doc)
     except ValidationError as exc:
         return None, [_from_pydantic(doc, err) for err in exc.errors(include_url=False)]
     checks = RecordChecks(path, doc, record)
     problems = checks.run()
     return LoadedRecord(where, record, doc, checks.orders), problems
+
+
+_NUMBER_ERRORS = ("int_", "float_", "less_than", "greater_than", "finite_number", "multiple_of")
+
+
+def _validate(doc: YamlDocument) -> Record:
+    """The record model of the document. A float written in a YAML 1.2-only form (``1e3``) where the record
+    wants text is read as the text written, and the record validated again."""
+    try:
+        return Record.model_validate(doc.data)
+    except ValidationError as exc:
+        if not doc.float_texts:
+            raise
+        wanted_text = [
+            tuple(err["loc"]) for err in exc.errors(include_url=False) if not err["type"].startswith(_NUMBER_ERRORS)
+        ]
+        if not doc.as_text(wanted_text):
+            raise
+    return Record.model_validate(doc.data)
 
 
 def _from_pydantic(doc: YamlDocument, err: Any) -> Problem:

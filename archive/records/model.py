@@ -50,6 +50,8 @@ def canonical_label(text: str) -> str:
     """The one spelling of a theme, tag or page area, and the slug of any name that reaches a file path:
     its letters and digits in any script (Unicode NFKC, case-folded), words joined by single hyphens.
     Empty when the text holds no letter or digit."""
+    if _SLUG_RE.fullmatch(text):  # already in its one spelling (the common case)
+        return text
     return "-".join(re.findall(r"[^\W_]+", unicodedata.normalize("NFKC", text).casefold()))
 
 

@@ -66,6 +66,7 @@ _YAML12_ONLY = (
     (_INT, re.compile(r"[-+]?0o[0-7]+\Z")),
 )
 _NOT_FINITE = frozenset({".inf", "+.inf", "-.inf", ".nan"})
+_YAML11_FLOAT = next(regexp for tag, regexp in yaml.SafeLoader.yaml_implicit_resolvers["1"] if tag == _FLOAT)
 
 
 class _ComposingLoader(_Loader):  # type: ignore[valid-type,misc]
@@ -129,10 +130,31 @@ class YamlDocument:
     ``8:48:42``, ``0x1f``): where the record expects a number, that is the reason it is refused.
     """
 
+    def as_text(self, locs: Sequence[PathKey]) -> bool:
+        """Put back the text written for the YAML 1.2 floats at ``locs`` (a field that wants text got one).
+        Returns whether anything changed."""
+        changed = False
+        for loc in locs:
+            text = self.float_texts.pop(loc, None)
+            if text is None or not loc:
+                continue
+            holder = self.data
+            try:
+                for part in loc[:-1]:
+                    holder = holder[part]
+                holder[loc[-1]] = text
+            except (KeyError, IndexError, TypeError):  # pragma: no cover - the paths come from the data itself
+                continue
+            changed = True
+        return changed
+
     path: str
     data: Any
     lines: dict[PathKey, int] = field(default_factory=dict)
     number_notes: dict[PathKey, str] = field(default_factory=dict)
+    #: floats in forms only YAML 1.2 reads as numbers (``1e+27``, ``1.5e3``), by path, with the text written:
+    #: where the record expects text, the text is what the user meant (see :func:`as_text_where_text_is_wanted`)
+    float_texts: dict[PathKey, str] = field(default_factory=dict)
 
     def line_of(self, loc: Sequence[Hashable]) -> int:
         """The line of ``loc``, or of the nearest enclosing path that has one."""
@@ -411,10 +433,15 @@ class _Builder:
                 )
             return float(text) if tag == _FLOAT else int(text)
         if _DECIMAL_FLOAT.match(text):
+            yaml12_only = not _YAML11_FLOAT.match(text)  # 1e+27, 1.5e3: text to YAML 1.1 readers
+            if yaml12_only and key:
+                return text
             number = float(text)
             if not math.isfinite(number):
                 self._problem(node, loc, f"{text} is beyond the range of a number (about 1.8e308)")
                 return None
+            if yaml12_only:
+                self.doc.float_texts[loc] = text
             return number
         if text.lower() in _NOT_FINITE:
             self._problem(node, loc, f"{text!r} is not a finite number")
