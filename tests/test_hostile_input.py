@@ -133,6 +133,23 @@ CASES = [
         f"{RECORD}:19:plan.days",
         "at most 3,660",
     ),
+    Case(
+        "revenue above 0 but tiny",  # found by the property tests: its square vanished in the revenue variance
+        replaced(
+            "revenue: 15500.5\n    revenue_sum_of_squares: 1200000.0",
+            "revenue: 9.1e-212\n    revenue_sum_of_squares: 0.0",
+        ),
+        1,
+        f"{RECORD}:28:arms[0].revenue",
+        "9.1e-212 is above 0 but below 1e-06, the smallest amount",
+    ),
+    Case(
+        "key with a line break",
+        good_text() + '"bad\\nkey": 1\n',
+        1,
+        f"{RECORD}:52:'bad\\nkey'",
+        "unknown field 'bad\\nkey'",
+    ),
     # --- numbers as the user meant them (YAML 1.2 core schema, yaml.org/spec/1.2.2 section 10.3.2: decimal ints,
     # floats with optional exponent; YAML 1.1 int type, yaml.org/type/int.html: 0[0-7]+ octal, base 60 with ':')
     Case(
