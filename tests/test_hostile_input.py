@@ -578,3 +578,15 @@ def test_byte_limit_is_checked_before_reading(tmp_path: Path) -> None:
         handle.truncate(3_000_000_000)
     loaded, problems = load_record(path)
     assert loaded is None and [p.message.split(";")[0] for p in problems] == ["file is 3000.0 MB"]
+
+
+def test_keys_are_read_as_the_text_written(tmp_path: Path) -> None:
+    text = good_text().replace("    mobile:\n", "    2024:\n").replace("    desktop:\n", "    yes:\n")
+    loaded, problems = load_record(tmp_path / RECORD, text.encode())
+    assert loaded is not None, [str(p) for p in problems]
+    assert sorted(loaded.record.segments["device"]) == ["2024", "yes"]
+    # found by the property tests: a !!binary key reached the model as bytes and raised TypeError there
+    text = good_text().replace("      control: {visitors: 6000,", "      !!binary aGVsbG8=: {visitors: 6000,")
+    loaded, problems = load_record(tmp_path / RECORD, text.encode())
+    assert loaded is None and [(p.line, p.field) for p in problems] == [(39, "segments.device.mobile")]
+    assert "not allowed on a key" in problems[0].message

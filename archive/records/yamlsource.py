@@ -66,6 +66,12 @@ _YAML12_ONLY = (
     (_INT, re.compile(r"[-+]?0o[0-7]+\Z")),
 )
 _NOT_FINITE = frozenset({".inf", "+.inf", "-.inf", ".nan"})
+#: tags a key may carry: the ones plain scalars resolve to (a key is read as its text)
+_KEY_TAGS = frozenset(tag for resolvers in yaml.SafeLoader.yaml_implicit_resolvers.values() for tag, _ in resolvers) | {
+    _STR,
+    _INT,
+    _FLOAT,
+}
 _YAML11_FLOAT = next(regexp for tag, regexp in yaml.SafeLoader.yaml_implicit_resolvers["1"] if tag == _FLOAT)
 
 
@@ -359,8 +365,13 @@ class _Builder:
                 if not isinstance(key_node, scalar_node):
                     self._problem(key_node, loc, "a key must be a plain word, not a list or mapping")
                     continue
-                key = key_node.value if key_node.tag == _STR else self._scalar(key_node, loc, key=True)
-                if isinstance(key, str) and key == "<<":
+                # Keys are names (of fields, arms, segments): read as the text written, whatever it looks like, so
+                # that `2024:`, `yes:` or `031722:` name what they say; a key tagged otherwise (!!binary) is refused.
+                key = key_node.value
+                if key_node.tag not in _KEY_TAGS:
+                    self._problem(key_node, loc, f"YAML tag {key_node.tag!r} is not allowed on a key; remove it")
+                    continue
+                if key == "<<":
                     self._problem(key_node, loc, "YAML merge keys (<<) are not supported in records; write fields out")
                     continue
                 here = loc + (key,)
@@ -376,7 +387,7 @@ class _Builder:
             return out
         raise TypeError(f"unexpected YAML node {node!r}")  # pragma: no cover - composer yields only these
 
-    def _scalar(self, node: yaml.ScalarNode, loc: PathKey, key: bool = False) -> Any:
+    def _scalar(self, node: yaml.ScalarNode, loc: PathKey) -> Any:
         tag, text = node.tag, node.value
         if tag == _STR:
             return text
@@ -394,7 +405,7 @@ class _Builder:
             if flag is not None:
                 return flag
         if tag in (_INT, _FLOAT):
-            return self._number(node, loc, key)
+            return self._number(node, loc)
         if tag not in _SAFE_TAGS:
             self._problem(node, loc, f"YAML tag {node.tag!r} is not allowed in a record; remove it")
             return None
@@ -408,7 +419,7 @@ class _Builder:
             return None
         return value
 
-    def _number(self, node: yaml.ScalarNode, loc: PathKey, key: bool) -> Any:
+    def _number(self, node: yaml.ScalarNode, loc: PathKey) -> Any:
         """A scalar that YAML 1.1 or 1.2 resolves as a number, read by YAML 1.2 rules: decimal digits only.
 
         Other forms are kept as the text written, with a note of how other readers would take them: a field that
@@ -426,7 +437,6 @@ class _Builder:
                 octal = f"octal {int(digits, 8):,}" if "8" not in digits and "9" not in digits else "an octal form"
                 return self._odd_number(
                     loc,
-                    key,
                     text,
                     f"{text} starts with a zero, which YAML 1.1 readers take as {octal} and YAML 1.2 readers "
                     f"as {int(text):,}; write it without the leading zero",
@@ -434,8 +444,6 @@ class _Builder:
             return float(text) if tag == _FLOAT else int(text)
         if _DECIMAL_FLOAT.match(text):
             yaml12_only = not _YAML11_FLOAT.match(text)  # 1e+27, 1.5e3: text to YAML 1.1 readers
-            if yaml12_only and key:
-                return text
             number = float(text)
             if not math.isfinite(number):
                 self._problem(node, loc, f"{text} is beyond the range of a number (about 1.8e308)")
@@ -462,11 +470,10 @@ class _Builder:
             reason = f"{shown}: write numbers without '_' between the digits ({shown.replace('_', '')})"
         else:
             reason = f"{shown} is not a decimal number"
-        return self._odd_number(loc, key, text, reason)
+        return self._odd_number(loc, text, reason)
 
-    def _odd_number(self, loc: PathKey, key: bool, text: str, reason: str) -> str:
-        if not key:
-            self.doc.number_notes[loc] = reason
+    def _odd_number(self, loc: PathKey, text: str, reason: str) -> str:
+        self.doc.number_notes[loc] = reason
         return text
 
 
