@@ -120,7 +120,7 @@ def _read_record(path: Path) -> bytes:
             if stat.S_ISREG(info.st_mode):
                 if info.st_size > MAX_RECORD_BYTES:
                     raise YamlProblem(too_large(where, info.st_size))
-                return handle.read(MAX_RECORD_BYTES + 1)
+                return handle.read()
     except OSError:
         pass  # a link (not followed by the first open), a folder, a missing file: looked at closer below
     reason = _unusable(path, path.parent.resolve())
@@ -131,7 +131,7 @@ def _read_record(path: Path) -> bytes:
             info = os.fstat(handle.fileno())
             if info.st_size > MAX_RECORD_BYTES:
                 raise YamlProblem(too_large(where, info.st_size))
-            return handle.read(MAX_RECORD_BYTES + 1)
+            return handle.read()
     except OSError as exc:
         raise YamlProblem(Problem(where, 0, "", f"cannot be read ({exc.strerror or exc})")) from None
 

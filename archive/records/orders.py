@@ -69,7 +69,7 @@ def read_orders(path: Path, arms: set[str]) -> tuple[Orders | None, list[Problem
                         f"orders file is {info.st_size:,} bytes; the limit is {MAX_ORDERS_BYTES:,} bytes",
                     )
                 ]
-            raw = handle.read(MAX_ORDERS_BYTES + 1)
+            raw = handle.read()
     except FileNotFoundError:
         return None, [Problem(where, 0, "", "orders file not found")]
     except OSError as exc:
