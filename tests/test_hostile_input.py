@@ -518,6 +518,8 @@ LABELS = [
     ("送料無料", "送料無料"),  # CJK (no case, no spaces)
     ("ＦＲＥＥ ｓｈｉｐｐｉｎｇ", "free-shipping"),  # full-width forms fold to ASCII under NFKC
     ("Straße", "strasse"),  # case folding of sharp s
+    ("हिन्दी भाषा", "हिन्दी-भाषा"),  # Devanagari: vowel signs and virama (combining marks) stay in their word
+    ("a_b", "a-b"),  # the underscore joins no words
     ("🚚📦", ""),  # no letter or digit
 ]
 

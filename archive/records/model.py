@@ -48,11 +48,22 @@ def is_slug(text: str) -> bool:
 
 def canonical_label(text: str) -> str:
     """The one spelling of a theme, tag or page area, and the slug of any name that reaches a file path:
-    its letters and digits in any script (Unicode NFKC, case-folded), words joined by single hyphens.
+    its letters and digits in any script (Unicode NFKC, case-folded), words joined by single hyphens. The
+    combining marks that follow a letter belong to its word (the vowel signs of Devanagari or Tamil).
     Empty when the text holds no letter or digit."""
     if _SLUG_RE.fullmatch(text):  # already in its one spelling (the common case)
         return text
-    return "-".join(re.findall(r"[^\W_]+", unicodedata.normalize("NFKC", text).casefold()))
+    words: list[str] = []
+    word = ""
+    for char in unicodedata.normalize("NFKC", text).casefold():
+        if char.isalnum() or (word and unicodedata.category(char)[0] == "M"):
+            word += char
+        elif word:
+            words.append(word)
+            word = ""
+    if word:
+        words.append(word)
+    return "-".join(words)
 
 
 Status = Literal["planned", "running", "finished", "stopped-early"]
