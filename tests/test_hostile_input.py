@@ -369,6 +369,18 @@ CASES = [
         analyze=False,
     ),
     Case(
+        "loop of links named like records",
+        good_text(),
+        1,
+        "broken.yaml:0:-",
+        "a loop of symbolic links",
+        extra=lambda d: (
+            (d / "broken.yaml").symlink_to(d / "loop.yaml"),
+            (d / "loop.yaml").symlink_to(d / "broken.yaml"),
+        ),
+        analyze=False,
+    ),
+    Case(
         "pipe named like a record",
         good_text(),
         1,
