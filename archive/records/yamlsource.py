@@ -136,6 +136,24 @@ class YamlDocument:
     ``8:48:42``, ``0x1f``): where the record expects a number, that is the reason it is refused.
     """
 
+    path: str
+    data: Any
+    lines: dict[PathKey, int] = field(default_factory=dict)
+    number_notes: dict[PathKey, str] = field(default_factory=dict)
+    #: floats in forms only YAML 1.2 reads as numbers (``1e+27``, ``1.5e3``), by path, with the text written:
+    #: where the record expects text, the text is what the user meant (see :meth:`as_text`)
+    float_texts: dict[PathKey, str] = field(default_factory=dict)
+
+    def line_of(self, loc: Sequence[Hashable]) -> int:
+        """The line of ``loc``, or of the nearest enclosing path that has one."""
+        key = tuple(loc)
+        while key:
+            line = self.lines.get(key)
+            if line is not None:
+                return line
+            key = key[:-1]
+        return self.lines.get((), 1)
+
     def as_text(self, locs: Sequence[PathKey]) -> bool:
         """Put back the text written for the YAML 1.2 floats at ``locs`` (a field that wants text got one).
         Returns whether anything changed."""
@@ -153,24 +171,6 @@ class YamlDocument:
                 continue
             changed = True
         return changed
-
-    path: str
-    data: Any
-    lines: dict[PathKey, int] = field(default_factory=dict)
-    number_notes: dict[PathKey, str] = field(default_factory=dict)
-    #: floats in forms only YAML 1.2 reads as numbers (``1e+27``, ``1.5e3``), by path, with the text written:
-    #: where the record expects text, the text is what the user meant (see :func:`as_text_where_text_is_wanted`)
-    float_texts: dict[PathKey, str] = field(default_factory=dict)
-
-    def line_of(self, loc: Sequence[Hashable]) -> int:
-        """The line of ``loc``, or of the nearest enclosing path that has one."""
-        key = tuple(loc)
-        while key:
-            line = self.lines.get(key)
-            if line is not None:
-                return line
-            key = key[:-1]
-        return self.lines.get((), 1)
 
 
 class YamlProblem(Exception):
