@@ -150,6 +150,13 @@ CASES = [
         f"{RECORD}:52:'bad\\nkey'",
         "unknown field 'bad\\nkey'",
     ),
+    Case(
+        "iterates_on of 900 KB",
+        replaced("owner: basket team", "owner: basket team\niterates_on: " + "a" * 900_000),
+        1,
+        f"{RECORD}:5:iterates_on",
+        "'aaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaaa...' is not a record id",
+    ),
     # --- numbers as the user meant them (YAML 1.2 core schema, yaml.org/spec/1.2.2 section 10.3.2: decimal ints,
     # floats with optional exponent; YAML 1.1 int type, yaml.org/type/int.html: 0[0-7]+ octal, base 60 with ':')
     Case(

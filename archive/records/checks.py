@@ -79,6 +79,9 @@ class RecordChecks:
             self.add(("id",), f"id {r.id!r} does not match the file name {self.path.name!r}; rename one")
         if r.iterates_on is not None and r.iterates_on == r.id:
             self.add(("iterates_on",), "a test cannot iterate on itself")
+        elif r.iterates_on is not None and not is_slug(r.iterates_on):
+            shown = repr(r.iterates_on) if len(r.iterates_on) <= 40 else repr(r.iterates_on[:37] + "...")
+            self.add(("iterates_on",), f"{shown} is not a record id (lowercase letters, digits, single hyphens)")
 
     def labels(self) -> None:
         r = self.r
@@ -334,7 +337,7 @@ def archive_problems(summaries: Iterable[Summary], line_of: LineOf, unreadable: 
             problems.append(Problem(s.path, line_of(s.path, ("id",)), "id", f"id also used by {same[0].path}"))
     for s in items:
         target = s.iterates_on
-        if target is not None and target != s.id and target not in by_id and target not in exists:
+        if target is not None and target != s.id and target not in by_id and target not in exists and is_slug(target):
             near = difflib.get_close_matches(target, list(by_id), n=1)
             hint = f"; did you mean {near[0]!r}?" if near else ""
             problems.append(
