@@ -191,7 +191,7 @@ def _from_pydantic(doc: YamlDocument, err: Any) -> Problem:
         known = _fields_at(loc[:-1])
         near = difflib.get_close_matches(str(loc[-1]), known, n=1, cutoff=0.6)
         hint = f"; did you mean {near[0]!r}?" if near else f"; known fields here: {', '.join(known)}"
-        message = f"unknown field {loc[-1]!r}{hint}"
+        message = f"unknown field {_shown(loc[-1])}{hint}"
     elif kind == "missing":
         message = "required field is missing"
     elif loc in doc.number_notes:  # written in a number form that readers disagree on, kept as text

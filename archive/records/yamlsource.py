@@ -311,13 +311,15 @@ def _check_aliases(path: str, root: yaml.Node) -> None:
 
 def dotted(loc: Sequence[Hashable]) -> str:
     """``("arms", 0, "visitors")`` -> ``arms[0].visitors``; a key with a line break or another unprintable
-    character is shown quoted, so that a problem stays on one line."""
+    character is shown quoted, so that a problem stays on one line, and a long key is cut short."""
     out = ""
     for part in loc:
         if isinstance(part, int):
             out += f"[{part}]"
         else:
             text = part if isinstance(part, str) and part.isprintable() else repr(part)
+            if len(text) > 60:  # a key pasted by mistake: enough of it to find it
+                text = text[:57] + "..."
             out += ("." if out else "") + text
     return out
 
