@@ -220,7 +220,20 @@ def mutated_data(draw: st.DrawFn) -> Any:
     for _ in range(draw(st.integers(1, 3))):
         paths = list(_paths(record))
         path = draw(st.sampled_from(paths))
-        action = draw(st.sampled_from(["drop", "swap", "edge", "unicode", "add"]))
+        action = draw(st.sampled_from(["drop", "swap", "edge", "unicode", "add", "alias", "bomb"]))
+        if action in ("alias", "bomb"):
+            # shared objects: the dumper writes an anchor (&id001) and aliases (*id001), perhaps recursive ones
+            if action == "alias":
+                other = draw(st.sampled_from(paths))
+                target = record
+                for part in other:
+                    target = target[part]
+            else:
+                target = ["lol"] * 9
+                for _ in range(draw(st.integers(1, 8))):
+                    target = [target] * 9
+            record = _set(record, path, target)
+            break  # the data may now contain itself: no further walk over it
         if action == "drop":
             record = _drop(record, path)
         elif action == "swap":
