@@ -42,7 +42,7 @@ CASES = [
         "  - name: threshold-bar\n    control: true",
     ),
     ("conversions > visitors", "conversions: 310\n", "conversions: 10310\n", "arms[0].conversions", "exceed", "10310"),
-    ("negative revenue", "revenue: 15500.5\n", "revenue: -5\n", "arms[0].revenue", "greater than or equal", "-5"),
+    ("negative revenue", "revenue: 15500.5\n", "revenue: -5\n", "arms[0].revenue", "must be at least 0 (got -5)", "-5"),
     ("end before start", "ended: 2024-03-31", "ended: 2024-02-01", "ended", "before it starts", "ended:"),
     (
         "segment arm unknown",

@@ -4,18 +4,28 @@ archive (duplicate ids, iterates_on targets, a theme spelled two ways).
 
 from __future__ import annotations
 
+import datetime as dt
 import difflib
 from collections import defaultdict
 from collections.abc import Callable, Hashable, Iterable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
-from archive.records.model import Record, canonical_label, is_slug
+from archive.records.model import MIN_MONEY, Record, canonical_label, is_slug
 from archive.records.orders import Orders, orders_path, read_orders
 from archive.records.problems import Problem
 from archive.records.yamlsource import YamlDocument, dotted
 
 _TOLERANCE = 1e-6  # relative slack when comparing money sums written with rounding
+
+#: More arms than this is an error: every arm is compared with the control and each gets a share of traffic.
+MAX_ARMS = 26
+#: More arms than this earns a warning (common practice: tests rarely run more than a handful of arms).
+MANY_ARMS = 8
+#: A date before this is implausibly old for a test of an online shop (a warning).
+OLDEST_DATE = dt.date(1995, 1, 1)
+#: Largest planned traffic share (weights are normalised, so 1/1 or 50/50 are the usual forms).
+MAX_SPLIT_WEIGHT = 1e6
 
 
 @dataclass(frozen=True)
@@ -52,7 +62,9 @@ class RecordChecks:
         self.identity()
         self.labels()
         self.arms()
+        self.names()
         self.dates_and_status()
+        self.dates()
         self.plan()
         self.segments()
         self.decision()
@@ -72,6 +84,9 @@ class RecordChecks:
             )
         if r.iterates_on is not None and r.iterates_on == r.id:
             self.add(("iterates_on",), "a test cannot iterate on itself")
+        elif r.iterates_on is not None and not is_slug(r.iterates_on):
+            shown = repr(r.iterates_on) if len(r.iterates_on) <= 40 else repr(r.iterates_on[:37] + "...")
+            self.add(("iterates_on",), f"{shown} is not a record id (lowercase letters, digits, single hyphens)")
 
     def labels(self) -> None:
         r = self.r
@@ -91,6 +106,15 @@ class RecordChecks:
 
     def arms(self) -> None:
         arms = self.r.arms
+        if len(arms) > MAX_ARMS:
+            self.add(("arms",), f"{len(arms)} arms; the limit is {MAX_ARMS} (split the test into several records)")
+        elif len(arms) > MANY_ARMS:
+            self.add(
+                ("arms",),
+                f"{len(arms)} arms, more than {MANY_ARMS}: each arm gets little traffic and many comparisons "
+                "raise the chance of a false winner",
+                "warning",
+            )
         controls = [i for i, a in enumerate(arms) if a.control]
         if not controls:
             self.add(("arms",), "no arm is the control; mark one with control: true")
@@ -106,6 +130,10 @@ class RecordChecks:
                 self.add(here + ("conversions",), f"{arm.conversions} conversions exceed {arm.visitors} visitors")
             if arm.orders is not None and arm.conversions is not None and arm.orders < arm.conversions:
                 self.add(here + ("orders",), f"{arm.orders} orders but {arm.conversions} converting visitors")
+            for name, least in (("revenue", MIN_MONEY), ("revenue_sum_of_squares", MIN_MONEY**2)):
+                amount = getattr(arm, name)
+                if amount is not None and 0 < amount < least:
+                    self.add(here + (name,), f"{amount:g} is above 0 but below {least:g}, the smallest amount")
             if arm.revenue and (arm.conversions == 0 or arm.orders == 0):
                 self.add(here + ("revenue",), "revenue without any conversion or order")
             if arm.revenue_sum_of_squares is not None:
@@ -118,6 +146,48 @@ class RecordChecks:
                         here + ("revenue_sum_of_squares",),
                         f"impossible: at least revenue^2/conversions = {arm.revenue**2 / buyers:.6g}",
                     )
+
+    def names(self) -> None:
+        """Arm and segment names become parts of file names on the site: each needs a letter or digit, and two
+        arms may not share a slug."""
+        slugs: dict[str, int] = {}
+        for i, arm in enumerate(self.r.arms):
+            slug = canonical_label(arm.name)
+            if not slug:
+                self.add(("arms", i, "name"), f"{arm.name!r} has no letter or digit; name the arm with words")
+            elif slug in slugs and self.r.arms[slugs[slug]].name != arm.name:
+                other = self.r.arms[slugs[slug]].name
+                self.add(("arms", i, "name"), f"{arm.name!r} and {other!r} give one file name {slug!r}; rename one")
+            slugs.setdefault(slug, i)
+        for dim, by_value in self.r.segments.items():
+            if not canonical_label(dim):
+                self.add(("segments", dim), f"segment dimension {dim!r} has no letter or digit; name it with words")
+            for value in by_value:
+                if not canonical_label(value):
+                    self.add(("segments", dim, value), f"segment {value!r} has no letter or digit; name it with words")
+        if self.r.plan is not None:
+            for i, dim in enumerate(self.r.plan.segments):
+                if not canonical_label(dim):
+                    self.add(("plan", "segments", i), f"{dim!r} has no letter or digit; name the dimension with words")
+
+    def dates(self) -> None:
+        """Dates a person would question: in the future for what already happened, implausibly old, or a
+        decision taken before the test started."""
+        r = self.r
+        today = dt.date.today()
+        decided = r.decision.decided if r.decision is not None else None
+        dated = [(("started",), r.started), (("ended",), r.ended), (("decision", "decided"), decided)]
+        for loc, day in dated:
+            if day is not None and day < OLDEST_DATE:
+                self.add(loc, f"{day} is before {OLDEST_DATE.year}, implausibly old for a test; a typo?", "warning")
+        happened = [(("started",), r.started), (("decision", "decided"), decided)] if r.status != "planned" else []
+        if r.status in ("finished", "stopped-early"):
+            happened.append((("ended",), r.ended))
+        for loc, day in happened:
+            if day is not None and day > today:
+                self.add(loc, f"{day} is in the future (today is {today}) for a {r.status} test", "warning")
+        if decided is not None and r.started is not None and decided < r.started:
+            self.add(("decision", "decided"), f"decided on {decided}, before the test started ({r.started})", "warning")
 
     def dates_and_status(self) -> None:
         r = self.r
@@ -161,6 +231,8 @@ class RecordChecks:
                     self.add(("plan", "split", arm), f"{arm!r} is not an arm of this test")
                 if weight <= 0:
                     self.add(("plan", "split", arm), "a traffic share must be > 0")
+                elif weight > MAX_SPLIT_WEIGHT:
+                    self.add(("plan", "split", arm), f"a traffic share is a weight of at most {MAX_SPLIT_WEIGHT:g}")
             for arm in sorted(names - set(plan.split)):
                 self.add(("plan", "split"), f"arm {arm!r} has no planned share")
         for i, dim in enumerate(plan.segments):
@@ -179,6 +251,8 @@ class RecordChecks:
                         continue
                     if counts.conversions > counts.visitors:
                         self.add(here + ("conversions",), f"{counts.conversions} exceed {counts.visitors} visitors")
+                    if counts.revenue is not None and 0 < counts.revenue < MIN_MONEY:
+                        self.add(here + ("revenue",), f"{counts.revenue:g} is above 0 but below {MIN_MONEY:g}")
                     totals[arm_name]["visitors"] += counts.visitors
                     totals[arm_name]["conversions"] += counts.conversions
                     totals[arm_name]["revenue"] += counts.revenue or 0.0
@@ -217,8 +291,18 @@ class RecordChecks:
         if target is None:
             self.add(("orders_file",), "must be a file name next to the record (no '..', no absolute path)")
             return
+        folder = self.path.parent.resolve()
+        if target.is_symlink() or not target.parent.resolve().is_relative_to(folder):
+            resolved = target.resolve()
+            if resolved.exists() and not resolved.is_relative_to(folder):
+                self.add(
+                    ("orders_file",),
+                    f"{target} is a symbolic link to {resolved}, outside the archive folder; it is not followed "
+                    "(copy the file next to the record)",
+                )
+                return
         if not target.is_file():
-            self.add(("orders_file",), f"{target} not found")
+            self.add(("orders_file",), f"{target} not found" + (" (a folder)" if target.is_dir() else ""))
             return
         orders, problems = read_orders(target, {a.name for a in self.r.arms})
         self.problems.extend(problems)
@@ -258,7 +342,7 @@ def archive_problems(summaries: Iterable[Summary], line_of: LineOf, unreadable: 
             problems.append(Problem(s.path, line_of(s.path, ("id",)), "id", f"id also used by {same[0].path}"))
     for s in items:
         target = s.iterates_on
-        if target is not None and target != s.id and target not in by_id and target not in exists:
+        if target is not None and target != s.id and target not in by_id and target not in exists and is_slug(target):
             near = difflib.get_close_matches(target, list(by_id), n=1)
             hint = f"; did you mean {near[0]!r}?" if near else ""
             problems.append(

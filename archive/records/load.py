@@ -8,6 +8,7 @@ import difflib
 import gc
 import hashlib
 import os
+import stat
 import types
 import typing
 from collections.abc import Callable, Hashable, Iterator, Sequence
@@ -22,7 +23,15 @@ from archive.records.checks import RecordChecks, Summary, archive_problems
 from archive.records.model import HYPOTHESIS_FORMS, Record
 from archive.records.orders import Orders, orders_path
 from archive.records.problems import Problem
-from archive.records.yamlsource import YamlDocument, YamlProblem, dotted, parse_yaml, read_yaml
+from archive.records.yamlsource import (
+    MAX_RECORD_BYTES,
+    YamlDocument,
+    YamlProblem,
+    dotted,
+    parse_yaml,
+    read_yaml,
+    too_large,
+)
 
 RECORD_SUFFIXES = (".yaml", ".yml")
 
@@ -47,32 +56,144 @@ class CheckReport:
 
 
 def record_files(records_dir: Path) -> list[Path]:
-    """The record files of an archive folder (top level only), sorted."""
+    """The record files of an archive folder (top level only), sorted.
+
+    Only regular files are listed (a symbolic link counts when it points to a file inside the folder): a folder,
+    a dangling link or a link that leaves the folder named like a record is not read; `check` reports it (see
+    :func:`unusable_record_paths`).
+    """
+    return _scan(records_dir)[0]
+
+
+def unusable_record_paths(records_dir: Path) -> list[Problem]:
+    """Entries of the records folder named like a record that are not read as one, each with the reason."""
+    return _scan(records_dir)[1]
+
+
+def _scan(records_dir: Path) -> tuple[list[Path], list[Problem]]:
     if not records_dir.is_dir():
         raise FileNotFoundError(f"records folder {records_dir} does not exist; create it or pass --records")
-    found = [p for p in records_dir.iterdir() if p.suffix in RECORD_SUFFIXES and p.is_file()]
+    found: list[Path] = []
+    unusable: list[Problem] = []
+    folder: Path | None = None
+    with os.scandir(records_dir) as entries:
+        for entry in entries:
+            if not entry.name.endswith(RECORD_SUFFIXES):
+                continue
+            path = records_dir / entry.name
+            if not entry.is_symlink() and entry.is_file():  # the common case: no further system call
+                found.append(path)
+                continue
+            if folder is None:
+                folder = records_dir.resolve()
+            reason = _unusable(path, folder)
+            if reason is None:
+                found.append(path)
+            else:
+                unusable.append(Problem(str(path), 0, "", reason))
     # Paths in one folder sort as their names do (case-folded where the OS folds case); the key spares the
     # slow comparison of whole paths.
-    return sorted(found, key=lambda p: os.path.normcase(p.name))
+    found.sort(key=lambda p: os.path.normcase(p.name))
+    return found, unusable
+
+
+def _unusable(path: Path, folder: Path) -> str | None:
+    """Why ``path`` (in ``folder``, resolved) is not read as a record file, or None when it is readable."""
+    try:
+        if path.is_symlink():
+            target = Path(os.readlink(path))
+            resolved = path.resolve()
+            if not resolved.exists():
+                return f"is a symbolic link to {target}, which does not exist; remove the link or restore the file"
+            if not resolved.is_relative_to(folder):
+                return (
+                    f"is a symbolic link to {resolved}, outside the records folder; it is not followed "
+                    "(copy the record into the folder)"
+                )
+        mode = path.stat().st_mode
+    except (OSError, RuntimeError) as exc:  # RuntimeError: a loop of symbolic links
+        return f"cannot be read ({exc.strerror if isinstance(exc, OSError) else 'a loop of symbolic links'})"
+    if stat.S_ISDIR(mode):
+        return "is a folder, not a record file; rename it so its name does not end in .yaml or .yml"
+    if not stat.S_ISREG(mode):
+        return "is not a regular file (a device, pipe or socket); it is not read"
+    return None
+
+
+def _read_record(path: Path) -> bytes:
+    """The bytes of a record file, refusing before any read what no record can be. Raises :class:`YamlProblem`."""
+    where = str(path)
+    try:
+        with open(path, "rb", opener=_open_plain) as handle:
+            info = os.fstat(handle.fileno())
+            if stat.S_ISREG(info.st_mode):
+                if info.st_size > MAX_RECORD_BYTES:
+                    raise YamlProblem(too_large(where, info.st_size))
+                return handle.read()
+    except OSError:
+        pass  # a link (not followed by the first open), a folder, a missing file: looked at closer below
+    reason = _unusable(path, path.parent.resolve())
+    if reason is not None:
+        raise YamlProblem(Problem(where, 0, "", reason))
+    try:  # a link to a file inside the folder
+        with open(path, "rb", opener=_open_nonblocking) as handle:
+            info = os.fstat(handle.fileno())
+            if info.st_size > MAX_RECORD_BYTES:
+                raise YamlProblem(too_large(where, info.st_size))
+            return handle.read()
+    except OSError as exc:
+        raise YamlProblem(Problem(where, 0, "", f"cannot be read ({exc.strerror or exc})")) from None
+
+
+def _open_nonblocking(name: str, flags: int) -> int:
+    """Open without waiting: a named pipe where a record should be must not hang the reader."""
+    return os.open(name, flags | getattr(os, "O_NONBLOCK", 0))
+
+
+def _open_plain(name: str, flags: int) -> int:
+    """Open a file that is not a symbolic link, without waiting on a pipe."""
+    return os.open(name, flags | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_NOFOLLOW", 0))
 
 
 def load_record(
     path: Path, raw: bytes | None = None, expect_stem: bool = True
 ) -> tuple[LoadedRecord | None, list[Problem]]:
     """Parse and check one record file. Returns the record (None if it cannot be built) and its problems.
-    ``expect_stem=False`` (a draft read from any file) makes an id that differs from the file name a warning."""
+
+    Given ``raw``, those bytes are checked as the content of ``path`` and the file is not read.
+    ``expect_stem=False`` (a draft read from any file) makes an id that differs from the file name a warning.
+    """
     where = str(path)
     try:
-        doc = parse_yaml(where, path.read_bytes() if raw is None else raw)
+        doc = parse_yaml(where, _read_record(path) if raw is None else raw)
     except YamlProblem as exc:
         return None, exc.problems
     try:
-        record = Record.model_validate(doc.data)
+        record = _validate(doc)
     except ValidationError as exc:
         return None, [_from_pydantic(doc, err) for err in exc.errors(include_url=False)]
     checks = RecordChecks(path, doc, record, expect_stem)
     problems = checks.run()
     return LoadedRecord(where, record, doc, checks.orders), problems
+
+
+_NUMBER_ERRORS = ("int_", "float_", "less_than", "greater_than", "finite_number", "multiple_of")
+
+
+def _validate(doc: YamlDocument) -> Record:
+    """The record model of the document. A float written in a YAML 1.2-only form (``1e3``) where the record
+    wants text is read as the text written, and the record validated again."""
+    try:
+        return Record.model_validate(doc.data)
+    except ValidationError as exc:
+        if not doc.float_texts:
+            raise
+        wanted_text = [
+            tuple(err["loc"]) for err in exc.errors(include_url=False) if not err["type"].startswith(_NUMBER_ERRORS)
+        ]
+        if not doc.as_text(wanted_text):
+            raise
+    return Record.model_validate(doc.data)
 
 
 def _from_pydantic(doc: YamlDocument, err: Any) -> Problem:
@@ -82,13 +203,24 @@ def _from_pydantic(doc: YamlDocument, err: Any) -> Problem:
         known = _fields_at(loc[:-1])
         near = difflib.get_close_matches(str(loc[-1]), known, n=1, cutoff=0.6)
         hint = f"; did you mean {near[0]!r}?" if near else f"; known fields here: {', '.join(known)}"
-        message = f"unknown field {loc[-1]!r}{hint}"
+        message = f"unknown field {_shown(loc[-1])}{hint}"
     elif kind == "missing":
         message = "required field is missing"
+    elif loc in doc.number_notes:  # written in a number form that readers disagree on, kept as text
+        message = doc.number_notes[loc]
+    elif kind == "int_type" and isinstance(err.get("input"), float):
+        message = f"expected a whole number in decimal digits, like 31722 (got {err['input']!r})"
+    elif kind in ("less_than_equal", "less_than", "greater_than_equal", "greater_than") and "ctx" in err:
+        bound = next(iter(err["ctx"].values()))
+        sign = {"less_than_equal": "at most", "less_than": "below", "greater_than_equal": "at least"}
+        shown = f"{bound:,}" if isinstance(bound, int) else f"{bound:,g}"
+        message = f"must be {sign.get(kind, 'above')} {shown} (got {_shown(err.get('input'))})"
+        if kind in ("less_than_equal", "less_than"):
+            message += "; that is the limit for this field"
+    elif kind == "too_long" and "ctx" in err and isinstance(err.get("input"), list):
+        message = f"holds {len(err['input'])} items; the limit is {err['ctx'].get('max_length')}"
     else:
-        shown = repr(err.get("input"))
-        if len(shown) > 40:
-            shown = shown[:37] + "..."
+        shown = _shown(err.get("input"))
         message = f"{err['msg']} (got {shown})"
         if kind == "string_type" and isinstance(err.get("input"), bool):
             message += "; YAML reads yes/no/on/off as true/false: put the word in quotes"
@@ -100,6 +232,11 @@ def _from_pydantic(doc: YamlDocument, err: Any) -> Problem:
 def _is_form_tag(loc: Sequence[Hashable], i: int) -> bool:
     """True for the tag pydantic puts after ``hypothesis`` to say which of its forms was tried."""
     return i == 1 and loc[0] == "hypothesis" and loc[1] in HYPOTHESIS_FORMS
+def _shown(value: Any) -> str:
+    if isinstance(value, int) and not isinstance(value, bool) and abs(value) >= 10**15:
+        return f"{value:.3g}"  # a count of 31 digits reads better as 1e+30
+    shown = repr(value)
+    return shown if len(shown) <= 40 else shown[:37] + "..."
 
 
 def _fields_at(loc: Sequence[Hashable]) -> list[str]:
@@ -151,8 +288,9 @@ def gc_paused() -> Iterator[None]:
 def check_archive(records_dir: Path, progress: Callable[[int], None] | None = None) -> CheckReport:
     """Check every record of a folder. Never writes."""
     report = CheckReport()
-    paths = record_files(records_dir)
-    report.files = len(paths)
+    paths, unusable = _scan(records_dir)
+    report.problems.extend(unusable)
+    report.files = len(paths) + len(unusable)
     failed: list[str] = []
     for path in paths:
         loaded, problems = load_record(path)

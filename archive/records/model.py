@@ -23,6 +23,24 @@ _SLUG_RE = re.compile(SLUG)
 
 _STRICT = ConfigDict(extra="forbid", strict=True, allow_inf_nan=False)
 
+# Hard limits of the numbers in a record, far beyond any real test, so that no later sum, square or database
+# column overflows. A count fits a signed 32-bit column; squares of amounts stay finite in a float.
+#: visitors, conversions or orders of one arm (or segment), and planned visitors per arm
+MAX_COUNT = 2_000_000_000
+#: revenue of one arm or segment, in any currency
+MAX_MONEY = 1e15
+#: sum over visitors of revenue^2: at most (sum of revenue)^2 for amounts >= 0
+MAX_SUM_OF_SQUARES = MAX_MONEY**2
+#: the smallest amount of money above 0 (a millionth of a currency unit); less is a typo, and its square
+#: vanishes in floating point (checked in archive.records.checks)
+MIN_MONEY = 1e-6
+#: planned duration
+MAX_DAYS = 3660
+#: the smallest relative lift worth detecting (10 = +1000%)
+MAX_LIFT = 10.0
+#: |mean| and standard deviation of log(1 + lift) in a planning prior (e^10 is a 22,000-fold change)
+MAX_LOG_LIFT = 10.0
+
 
 def is_slug(text: str) -> bool:
     return bool(_SLUG_RE.match(text)) and len(text) <= 80
@@ -30,9 +48,22 @@ def is_slug(text: str) -> bool:
 
 def canonical_label(text: str) -> str:
     """The one spelling of a theme, tag or page area, and the slug of any name that reaches a file path:
-    its letters and digits in any script (Unicode NFKC, case-folded), words joined by single hyphens.
+    its letters and digits in any script (Unicode NFKC, case-folded), words joined by single hyphens. The
+    combining marks that follow a letter belong to its word (the vowel signs of Devanagari or Tamil).
     Empty when the text holds no letter or digit."""
-    return "-".join(re.findall(r"[^\W_]+", unicodedata.normalize("NFKC", text).casefold()))
+    if _SLUG_RE.fullmatch(text):  # already in its one spelling (the common case)
+        return text
+    words: list[str] = []
+    word = ""
+    for char in unicodedata.normalize("NFKC", text).casefold():
+        if char.isalnum() or (word and unicodedata.category(char)[0] == "M"):
+            word += char
+        elif word:
+            words.append(word)
+            word = ""
+    if word:
+        words.append(word)
+    return "-".join(words)
 
 
 Status = Literal["planned", "running", "finished", "stopped-early"]
@@ -121,8 +152,12 @@ class PlanPrior(SQLModel):
     model_config = _STRICT  # type: ignore[assignment]
 
     source: str = Field(min_length=1, description="Which archived comparisons the prior came from.")
-    mean_log_lift: float = Field(description="Mean of log(1 + relative lift) under the prior.")
-    sd_log_lift: float = Field(gt=0, description="Standard deviation of log(1 + relative lift) under the prior.")
+    mean_log_lift: float = Field(
+        ge=-MAX_LOG_LIFT, le=MAX_LOG_LIFT, description="Mean of log(1 + relative lift) under the prior."
+    )
+    sd_log_lift: float = Field(
+        gt=0, le=MAX_LOG_LIFT, description="Standard deviation of log(1 + relative lift) under the prior."
+    )
 
 
 class Plan(SQLModel):
@@ -136,12 +171,13 @@ class Plan(SQLModel):
     minimum_lift: float | None = Field(
         default=None,
         gt=0,
+        le=MAX_LIFT,
         description="Smallest relative lift in conversion worth detecting, as a fraction (0.05 = +5%).",
     )
     alpha: float = Field(default=0.05, gt=0, lt=1, description="Two-sided significance level.")
     power: float = Field(default=0.8, gt=0, lt=1, description="Planned power at the minimum lift.")
-    visitors_per_arm: int | None = Field(default=None, gt=0, description="Planned visitors in each arm.")
-    days: int | None = Field(default=None, gt=0, description="Planned duration in days.")
+    visitors_per_arm: int | None = Field(default=None, gt=0, le=MAX_COUNT, description="Planned visitors in each arm.")
+    days: int | None = Field(default=None, gt=0, le=MAX_DAYS, description="Planned duration in days.")
     split: dict[str, float] | None = Field(
         default=None,
         description="Planned share of traffic per arm name (weights, normalised; omitted = equal split).",
@@ -161,15 +197,19 @@ class ArmCore(SQLModel):
     name: str = Field(description="Short name of the arm, unique in the test.", min_length=1, max_length=60)
     control: bool = Field(default=False, description="true for the one arm that is the control.")
     description: str = Field(default="", description="What visitors in this arm saw.")
-    visitors: int | None = Field(default=None, ge=0, description="Visitors assigned to the arm.")
+    visitors: int | None = Field(default=None, ge=0, le=MAX_COUNT, description="Visitors assigned to the arm.")
     conversions: int | None = Field(
-        default=None, ge=0, description="Visitors who converted (ordered at least once); not the order count."
+        default=None,
+        ge=0,
+        le=MAX_COUNT,
+        description="Visitors who converted (ordered at least once); not the order count.",
     )
-    orders: int | None = Field(default=None, ge=0, description="Orders placed by the arm's visitors.")
-    revenue: float | None = Field(default=None, ge=0, description="Total revenue of those orders.")
+    orders: int | None = Field(default=None, ge=0, le=MAX_COUNT, description="Orders placed by the arm's visitors.")
+    revenue: float | None = Field(default=None, ge=0, le=MAX_MONEY, description="Total revenue of those orders.")
     revenue_sum_of_squares: float | None = Field(
         default=None,
         ge=0,
+        le=MAX_SUM_OF_SQUARES,
         description="Sum over visitors of (revenue of the visitor)^2; makes the variance of revenue known.",
     )
 
@@ -183,9 +223,9 @@ class SegmentCounts(SQLModel):
 
     model_config = _STRICT  # type: ignore[assignment]
 
-    visitors: int = Field(ge=0, description="Visitors of the arm in this segment.")
-    conversions: int = Field(ge=0, description="Converting visitors of the arm in this segment.")
-    revenue: float | None = Field(default=None, ge=0, description="Revenue of the arm in this segment.")
+    visitors: int = Field(ge=0, le=MAX_COUNT, description="Visitors of the arm in this segment.")
+    conversions: int = Field(ge=0, le=MAX_COUNT, description="Converting visitors of the arm in this segment.")
+    revenue: float | None = Field(default=None, ge=0, le=MAX_MONEY, description="Revenue of the arm in this segment.")
 
 
 class Decision(SQLModel):
