@@ -57,7 +57,11 @@ def test_new_from_options_then_check(tmp_path: Path) -> None:
     assert code == 0, out
     text = (records / "gift-wrap-offer.yaml").read_text()
     assert "status: planned" in text and "page_area: basket" in text and "  - gift-wrap" in text
-    assert run("check", "--records", str(records), "--strict")[0] == 0
+    assert run("check", "--records", str(records))[0] == 0  # a fresh draft holds no error
+    code, out, _ = run("check", "--records", str(records), "--strict")
+    assert code == 1  # but --strict points at every prompt of the template still in place
+    assert "hypothesis.change: warning: template text left in place" in out
+    assert "plan.minimum_lift: warning: left empty" in out and "arms[1].description: warning: template text" in out
     # refuses to overwrite, leaves the file as it was
     (records / "gift-wrap-offer.yaml").write_text(text + "# edited by hand\n")
     before = snapshot(records)

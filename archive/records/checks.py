@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import datetime as dt
 import difflib
+import re
 from collections import defaultdict
 from collections.abc import Callable, Hashable, Iterable, Sequence
 from dataclasses import dataclass
@@ -44,6 +45,9 @@ class Summary:
         return cls(path, record.id, record.iterates_on, tuple(record.themes), tuple(record.tags), record.page_area)
 
 
+_PROMPT = re.compile(r"<[^<>]{3,}>")  # the template's prompts read <like this>
+
+
 class RecordChecks:
     """The checks that need a whole, well-typed record."""
 
@@ -70,7 +74,33 @@ class RecordChecks:
         self.decision()
         self.orders_file()
         self.links()
+        self.template_left()
         return self.problems
+
+    def template_left(self) -> None:
+        """Warnings (failures under --strict) for what the `new` template wrote to be replaced: angle-bracketed
+        prompts, the placeholder arm descriptions, and plan numbers left empty."""
+        from archive.records.template import PLACEHOLDER_DESCRIPTIONS
+
+        hypothesis = self.r.hypothesis
+        if isinstance(hypothesis, str):
+            parts: dict[str, str] = {"": hypothesis}
+        else:
+            parts = {name: getattr(hypothesis, name) or "" for name in ("change", "audience", "expected", "observed")}
+        for name, text in parts.items():
+            if _PROMPT.search(text):
+                loc: tuple[Hashable, ...] = ("hypothesis", name) if name else ("hypothesis",)
+                self.add(loc, "template text left in place: write your own words (or delete the line)", "warning")
+        if _PROMPT.search(self.r.title):
+            self.add(("title",), "template text left in place: write the test's title", "warning")
+        for i, arm in enumerate(self.r.arms):
+            if arm.description in PLACEHOLDER_DESCRIPTIONS:
+                self.add(("arms", i, "description"), "template text left in place: say what this arm showed", "warning")
+        raw_plan = self.doc.data.get("plan") if isinstance(self.doc.data, dict) else None
+        if isinstance(raw_plan, dict):
+            for key, value in raw_plan.items():
+                if value is None:
+                    self.add(("plan", key), "left empty: fill in the planned value or delete the line", "warning")
 
     def identity(self) -> None:
         r = self.r

@@ -31,6 +31,8 @@ PLACEHOLDER_PARTS = {
     "expected": "<the effect expected, as it reads after 'should', e.g. raise the share of visits ending in orders>",
     "observed": "<what was observed that led to the test, e.g. that a third of baskets sit just under the threshold>",
 }
+#: arm descriptions the template writes when none is given (a reminder, not a description)
+PLACEHOLDER_DESCRIPTIONS = ("what visitors saw before", "the change")
 #: number columns of a results CSV and whether each holds whole numbers
 _NUMBERS = {"visitors": True, "conversions": True, "orders": True, "revenue": False, "revenue_sum_of_squares": False}
 
@@ -187,7 +189,7 @@ def render(draft: Draft) -> str:
         out += [
             f"  - name: {_q(arm.name)}",
             *(["    control: true"] if arm.control else []),
-            f"    description: {_q(arm.description or ('what visitors saw before' if arm.control else 'the change'))}",
+            f"    description: {_q(arm.description or PLACEHOLDER_DESCRIPTIONS[0 if arm.control else 1])}",
             f"    visitors: {_num(arm.visitors)}".rstrip(),
             f"    conversions: {_num(arm.conversions)}  # visitors who ordered at least once",
             f"    orders: {_num(arm.orders)}".rstrip(),

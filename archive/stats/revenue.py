@@ -66,7 +66,8 @@ def welch(treatment: MeanSummary, control: MeanSummary, confidence: float = 0.95
     if control.mean > 0:
         z = float(special.ndtri(0.5 + confidence / 2))
         lift = treatment.mean / control.mean - 1
-        se_lift = math.sqrt(v_t / control.mean**2 + treatment.mean**2 * v_c / control.mean**4)
+        ratio = treatment.mean / control.mean  # delta method, written so that tiny means cannot underflow
+        se_lift = math.sqrt(v_t + ratio**2 * v_c) / control.mean
         low, high = lift - z * se_lift, lift + z * se_lift
     return MeanComparison(diff, diff - half, diff + half, df, p, lift, low, high, confidence)
 
