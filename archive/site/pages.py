@@ -68,6 +68,13 @@ def _safe_url(url: str) -> str | None:
 # --- one page per test ----------------------------------------------------------------------------------
 
 
+#: every page with statistics ends with a link to the one-line explanations of its terms
+GLOSSARY_LINE = (
+    "*What the terms mean (Holm p, TOST, tau², I², prediction interval, ...): "
+    "[glossary]({prefix}reference/glossary.md).*"
+)
+
+
 def test_page(entry: TestEntry, data: SiteData) -> str:
     r = data.records[entry.id]
     out = [f"# {md_text(r.title)}", "", *layout.answer_block(entry, r)]
@@ -109,6 +116,7 @@ def test_page(entry: TestEntry, data: SiteData) -> str:
     kept = [f"- [{md_text(label)}]({url})" for label, url in links if url]
     if kept:
         out += ["## Links", "", *kept, ""]
+    out += [GLOSSARY_LINE.format(prefix="../"), ""]
     return "\n".join(out).rstrip() + "\n"
 
 
@@ -224,6 +232,7 @@ def group_page(kind: str, group: GroupResult, data: SiteData, pooled: PoolResult
         for item in record.learnings:
             seen.append(f"- {md_text(item)} ({test_link(record)})")
     out += seen or ["No learnings recorded."]
+    out += ["", GLOSSARY_LINE.format(prefix="../")]
     return "\n".join(out).rstrip() + "\n"
 
 
