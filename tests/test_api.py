@@ -344,3 +344,26 @@ def test_csv_from_every_command_with_a_table(demo_db: str) -> None:
         assert code == 0, (args, err)
         rows = list(csv.reader(io.StringIO(out)))
         assert rows[0][0] == first and len(rows) >= 2 and all(len(r) == len(rows[0]) for r in rows), args
+
+
+def test_site_renders_again_only_what_changed(archive_dir: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    from archive.site import entries as site_entries
+
+    archive = Archive.open(archive_dir)
+    archive.index()
+    first = site_entries.entries_from_store(archive.engine())
+    rendered: list[str] = []
+    original = site_entries._entry
+
+    def counting(record, *args):  # type: ignore[no-untyped-def]
+        rendered.append(record.id)
+        return original(record, *args)
+
+    monkeypatch.setattr(site_entries, "_entry", counting)
+    again = site_entries.entries_from_store(archive.engine())
+    assert rendered == [] and again == first  # the store kept every page
+    path = archive_dir / "records" / f"{RECORD}.yaml"
+    path.write_text(path.read_text().replace("\nlearnings:", "\nlearnings:\n  - Seen again in review.", 1))
+    Archive.open(archive_dir).sync()
+    site_entries.entries_from_store(archive.engine())
+    assert rendered == [RECORD]

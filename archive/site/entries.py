@@ -8,6 +8,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 from sqlalchemy import Engine, select
@@ -21,7 +22,7 @@ from archive.render.markdown import markdown_sections
 from archive.site import layout, svg
 from archive.site.names import segment_chart_name
 from archive.stats import bayes
-from archive.store.tables import ANALYSIS, RECORD
+from archive.store.tables import ANALYSIS, RECORD, SITE_PAGE
 
 
 @dataclass
@@ -107,31 +108,85 @@ def _entry(
     )
 
 
+#: bump when the rendered pieces of a test's page change: every page is rendered again at the next build
+SITE_PAGE_VERSION = "1"
+
+
 def entries_from_store(engine: Engine) -> list[TestEntry]:
     """An entry per stored record (in file-name order), built from what the store already knows: no record is
-    parsed or analysed again."""
+    parsed or analysed again, and a page whose record and analysis are unchanged since the last build is not
+    rendered again (its pieces are kept in the store's ``site_page`` table, as JSON)."""
+    import json
+
     from archive.analysis.jsonable import loads, loads_list
     from archive.store.query import all_analyses
 
     analyses = {a.record_id: a for a in all_analyses(engine)}
     with engine.connect() as conn:
         rows = conn.execute(
-            select(RECORD.c.id, RECORD.c.content_hash, RECORD.c.body, ANALYSIS.c.effects_json)
-            .select_from(RECORD.outerjoin(ANALYSIS, ANALYSIS.c.record_id == RECORD.c.id))
+            select(
+                RECORD.c.id,
+                RECORD.c.content_hash,
+                RECORD.c.body,
+                ANALYSIS.c.effects_json,
+                SITE_PAGE.c.key,
+                SITE_PAGE.c.page_json,
+            )
+            .select_from(
+                RECORD.outerjoin(ANALYSIS, ANALYSIS.c.record_id == RECORD.c.id).outerjoin(
+                    SITE_PAGE, SITE_PAGE.c.record_id == RECORD.c.id
+                )
+            )
             .order_by(RECORD.c.path)
         ).all()
     entries = []
-    for record_id, digest, body, effects_blob in rows:
+    fresh: list[dict[str, str]] = []
+    for record_id, digest, body, effects_blob, page_key, page_json in rows:
         stored = analyses.get(record_id)
         if stored is None or stored.error is not None:
             entries.append(TestEntry(record_id, digest, body, [], {}, True, None, None, None, ""))
             continue
+        effects = loads_list(Effect, effects_blob or "[]")
+        key = f"{SITE_PAGE_VERSION}:{digest}:{stored.version}"
+        if page_key == key:
+            entries.append(_from_page(record_id, digest, body, effects, json.loads(page_json)))
+            continue
         analysis = loads(Analysis, stored.result_json)
         segments = None if stored.segments_json == "null" else loads(SegmentAnalysis, stored.segments_json)
-        record = record_from_json(body)
-        effects = loads_list(Effect, effects_blob or "[]")
-        entries.append(_entry(record, digest, body, analysis, segments, effects))
+        entry = _entry(record_from_json(body), digest, body, analysis, segments, effects)
+        entries.append(entry)
+        fresh.append({"record_id": record_id, "key": key, "page_json": json.dumps(_page(entry), ensure_ascii=False)})
+    if fresh:
+        _keep_pages(engine, fresh)
     return entries
+
+
+_PAGE_FIELDS = ("verdicts", "trusted", "action", "agrees", "disagreement", "memo_markdown", "summary", "failed_checks")
+
+
+def _page(entry: TestEntry) -> dict[str, object]:
+    out: dict[str, object] = {name: getattr(entry, name) for name in _PAGE_FIELDS}
+    out["charts"] = {name: svg_bytes.decode("utf-8") for name, svg_bytes in entry.charts.items()}
+    return out
+
+
+def _from_page(record_id: str, digest: str, body: str, effects: list[Effect], page: dict[str, Any]) -> TestEntry:
+    charts = {name: text.encode("utf-8") for name, text in page["charts"].items()}
+    return TestEntry(record_id, digest, body, effects, charts=charts, **{name: page[name] for name in _PAGE_FIELDS})
+
+
+def _keep_pages(engine: Engine, rows: list[dict[str, str]]) -> None:
+    """Store freshly rendered pages (replacing older ones of the same records), in one write transaction."""
+    from sqlalchemy import delete
+
+    from archive.store.engine import write_transaction
+
+    with write_transaction(engine) as conn:
+        ids = [r["record_id"] for r in rows]
+        for start in range(0, len(ids), 500):
+            conn.execute(delete(SITE_PAGE).where(SITE_PAGE.c.record_id.in_(ids[start : start + 500])))
+        for start in range(0, len(rows), 500):
+            conn.execute(SITE_PAGE.insert(), rows[start : start + 500])
 
 
 def entries_for_folder(records_dir: Path, settings: Settings | None = None) -> list[TestEntry]:

@@ -15,7 +15,7 @@ from sqlmodel import Field, SQLModel
 from archive.records.model import ArmCore, RecordCore
 
 #: bump when the tables change; an index of another version is rebuilt from the records
-SCHEMA_VERSION = 2
+SCHEMA_VERSION = 3
 
 
 class RecordRow(RecordCore, table=True):
@@ -86,6 +86,17 @@ class AnalysisRow(SQLModel, table=True):
     segment_effects_json: str = Field(default="{}", sa_column=Column(Text, nullable=False, default="{}"))
 
 
+class SitePageRow(SQLModel, table=True):
+    """The rendered pieces of one test's page on the site (Markdown of its memo, its charts as SVG text), kept
+    as JSON so that a site build renders again only what changed."""
+
+    __tablename__ = "site_page"
+
+    record_id: str = Field(primary_key=True, foreign_key="record.id", ondelete="CASCADE")
+    key: str = Field(description="Site code version, record content hash and analysis version it was made from.")
+    page_json: str = Field(sa_column=Column(Text, nullable=False))
+
+
 class MetaRow(SQLModel, table=True):
     __tablename__ = "index_meta"
 
@@ -105,7 +116,8 @@ TAG = table_of(TagRow)
 SEGMENT = table_of(SegmentRow)
 META = table_of(MetaRow)
 ANALYSIS = table_of(AnalysisRow)
-CHILD_TABLES = (ARM, THEME, TAG, SEGMENT, ANALYSIS)
+SITE_PAGE = table_of(SitePageRow)
+CHILD_TABLES = (ARM, THEME, TAG, SEGMENT, ANALYSIS, SITE_PAGE)
 ALL_TABLES = (RECORD, *CHILD_TABLES, META)
 
 Index("ix_record_started", RECORD.c.started)
