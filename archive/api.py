@@ -22,7 +22,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, Literal
 
-from archive.analysis.results import Settings
+from archive.analysis.settings import Settings
 
 if TYPE_CHECKING:
     import pandas as pd

@@ -20,7 +20,11 @@ def __getattr__(name: str) -> Any:
         from archive.analysis.one_test import analyze
 
         return analyze
-    if name in ("Analysis", "CannotAnalyze", "Settings", "json_safe"):
+    if name == "Settings":
+        from archive.analysis.settings import Settings
+
+        return Settings
+    if name in ("Analysis", "CannotAnalyze", "json_safe"):
         from archive.analysis import results
 
         return getattr(results, name)

@@ -10,30 +10,13 @@ from typing import Any, Literal
 
 import numpy as np
 
-from archive.analysis.verdict import VerdictRules
+from archive.analysis.settings import Settings as Settings  # re-exported (they live in settings)
 from archive.stats.revenue import (
     BootstrapInterval,
     ExtremeOrders,
 )
 
 CheckStatus = Literal["ok", "warning", "failed"]
-
-
-@dataclass(frozen=True)
-class Settings:
-    """Everything the analysis can be told; every default is stated in the report."""
-
-    prior: tuple[float, float] = (1.0, 1.0)  # Beta prior of each arm's conversion rate (uniform)
-    prior_label: str = "uniform Beta(1, 1) on each arm's conversion rate"
-    confidence: float = 0.95
-    srm_alpha: float = 0.001  # common practice: alarm on sample ratio mismatch at p < 0.001
-    margin: float | None = None  # equivalence margin on relative lift; None: the plan's minimum_lift, else default
-    cap_percentile: float = 99.0
-    top_fraction: float = 0.01
-    bootstrap_replicates: int = 1000
-    seed: int = 0
-    currency: str = "EUR"  # shown beside every amount of revenue (an archive setting)
-    rules: VerdictRules = field(default_factory=VerdictRules)
 
 
 @dataclass

@@ -46,29 +46,12 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import special
 
+from archive.analysis.settings import VerdictRules
+
 VERDICTS = ("winner", "leaning-better", "flat", "inconclusive", "trade-off", "leaning-worse", "loser")
 GUARDRAILS = ("non-inferior", "unchecked", "not-shown", "worse")
 
 _DOWNGRADE = {"winner": "leaning-better", "loser": "leaning-worse"}
-
-
-@dataclass(frozen=True)
-class VerdictRules:
-    win_probability: float = 0.95  # the opt-in probability rule only (common practice: 90-95%)
-    alpha: float = 0.05  # two-sided, Holm-adjusted, when the record has no plan (a plan's alpha wins); common practice
-    leaning_probability: float = 0.80  # common practice
-    default_margin: float = 0.05  # equivalence margin when the plan names no smallest lift that matters
-    ship_on_probability: bool = False  # opt-in: P(beats control) >= win_probability also wins (no error control)
-    min_conversions_without_plan: int = 100  # common practice: without a planned size, no ship below this per arm
-    revenue_margin: float = 0.05  # non-inferiority margin of relative revenue per visitor for a ship
-
-    def __post_init__(self) -> None:
-        if not 0.5 < self.leaning_probability <= self.win_probability < 1:
-            raise ValueError("need 0.5 < leaning_probability <= win_probability < 1")
-        if not 0 < self.alpha < 1 or not 0 < self.default_margin < 1:
-            raise ValueError("alpha and default_margin lie strictly between 0 and 1")
-        if not 0 < self.revenue_margin < 1 or self.min_conversions_without_plan < 0:
-            raise ValueError("revenue_margin lies strictly between 0 and 1; min_conversions_without_plan >= 0")
 
 
 @dataclass(frozen=True)

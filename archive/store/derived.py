@@ -14,7 +14,7 @@ import json
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
-from archive.analysis.results import Settings
+from archive.analysis.settings import Settings
 
 if TYPE_CHECKING:
     from archive.records.model import Record

@@ -27,7 +27,7 @@ from typing import Any
 
 from sqlalchemy import Connection, Engine, delete, select, text, update
 
-from archive.analysis.results import Settings
+from archive.analysis.settings import Settings
 from archive.records.checks import Summary, archive_problems
 from archive.records.load import (
     LineFinder,
