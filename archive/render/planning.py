@@ -11,7 +11,11 @@ from archive.render.model import Memo, Section, Table
 
 def prior_memo(prior: LiftPrior, baseline: BaselinePrior | None, lift: float | None) -> Memo:
     low, high = prior.interval()
-    lead = [prior.label() + "."]
+    lead = [
+        f"From {prior.source}: expect a true lift around {pct(prior.lift, 1, True)}; 95% of such tests land between "
+        f"{pct(low, 1, True)} and {pct(high, 1, True)}; the chance it helps at all is {prior.prob_above(0.0):.0%}.",
+        f"Technically: {prior.label()}.",
+    ]
     if prior.warning:
         lead.append(f"Warning: {prior.warning}.")
     bullets = [
