@@ -60,6 +60,9 @@ def test_shared_control_is_split_evenly() -> None:
     # log RR and the metafor escalc "RR" variance with the halved control: 450 of 15,000
     assert b.log_rr == pytest.approx(math.log((480 / 15_000) / (450 / 15_000)), rel=1e-12)
     assert b.variance == pytest.approx(1 / 480 - 1 / 15_000 + 1 / 450 - 1 / 15_000, rel=1e-12)
+    # the estimate's own sampling variance uses the whole control (Katz et al. 1978 log RR variance, 900 of 30,000):
+    # the replay of calibrate forecasts with it, since the point estimate is the same either way
+    assert b.sampling_variance == pytest.approx(1 / 480 - 1 / 15_000 + 1 / 900 - 1 / 30_000, rel=1e-12)
 
 
 def test_zero_cell_gets_half_added() -> None:

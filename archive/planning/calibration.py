@@ -88,7 +88,10 @@ def _score(rows: list[tuple[float, float, bool, bool]]) -> Score:
 
 
 def _forecast(prior_mean: float, prior_sd: float, e: Effect) -> tuple[float, float, bool, bool]:
-    spread = math.sqrt(prior_sd**2 + e.variance)
+    # the estimate varies with its own sampling variance (whole control); "won" is read, as everywhere, on the
+    # pooling scale (z against the split control's standard error)
+    sampling = e.sampling_variance if e.sampling_variance is not None else e.variance
+    spread = math.sqrt(prior_sd**2 + sampling)
     p_win = float(stats.norm.sf((Z * e.se - prior_mean) / spread))
     covered = abs(e.log_rr - prior_mean) <= Z * spread
     won = e.log_rr / e.se > Z

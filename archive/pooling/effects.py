@@ -46,6 +46,7 @@ class Effect:
     rpv_variance: float | None = None
     segment: str | None = None  # for segment-level effects: "dimension=value"
     double_zero: bool = False  # no conversions (or only conversions) in both arms: no information on the ratio
+    sampling_variance: float | None = None  # of log_rr against the whole control (None: as ``variance``)
 
     @property
     def lift(self) -> float:
@@ -109,6 +110,8 @@ def record_effects_from(record: Record, analysis: Analysis) -> list[Effect]:
     for t in treatments:
         n_t, x_t = float(t.visitors or 0), float(t.conversions or 0)
         log_rr, var, corrected = log_rr_split(x_t, n_t, x_c, n_c)
+        # the estimate's own variance uses the whole control: splitting it is for pooling only
+        _, whole_var, _ = log_rr_split(x_t, n_t, x_c * m, n_c * m)
         rpv, rpv_var = _rpv(
             t.revenue,
             t.revenue_sum_of_squares,
@@ -139,6 +142,7 @@ def record_effects_from(record: Record, analysis: Analysis) -> list[Effect]:
                 rpv_log_ratio=rpv,
                 rpv_variance=rpv_var,
                 double_zero=_double_zero(x_t, n_t, x_c, n_c),
+                sampling_variance=whole_var,
             )
         )
     return out
@@ -182,6 +186,7 @@ def segment_effects(
                         "rpv_variance": None,
                         "segment": f"{dimension}={value}",
                         "double_zero": _double_zero(t.conversions, t.visitors, c.conversions, c.visitors),
+                        "sampling_variance": log_rr_split(t.conversions, t.visitors, c.conversions, c.visitors)[1],
                     }
                 )
             )
