@@ -64,7 +64,7 @@ def read_settings(root: Path) -> Settings:
     scalar fields of :class:`~archive.analysis.Settings` (e.g. ``srm_alpha: 0.001``, ``confidence: 0.95``), and
     ``rules:`` with fields of :class:`~archive.analysis.verdict.VerdictRules` (e.g. ``ship_on_probability: true``,
     ``revenue_margin: 0.03``). ``synonyms:`` is read by :func:`read_synonyms`."""
-    from archive.analysis.verdict import VerdictRules
+    from archive.analysis.settings import VerdictRules
 
     path = root / SETTINGS_FILE
     if not path.is_file():

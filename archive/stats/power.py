@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import math
 
-from scipy import stats
+from scipy import special
 
 
 def _check_rates(p1: float, p2: float) -> None:
@@ -35,8 +35,8 @@ def visitors_per_arm(
     r = ratio
     delta = abs(p1 - p2)
     p_bar = (p1 + r * p2) / (r + 1)
-    z_a = stats.norm.ppf(1 - alpha / 2)
-    z_b = stats.norm.ppf(power)
+    z_a = special.ndtri(1 - alpha / 2)
+    z_b = special.ndtri(power)
     root = z_a * math.sqrt((r + 1) * p_bar * (1 - p_bar)) + z_b * math.sqrt(r * p1 * (1 - p1) + p2 * (1 - p2))
     n = float(root**2 / (r * delta**2))
     if continuity:
@@ -48,9 +48,9 @@ def power_two_rates(p1: float, p2: float, n: float, alpha: float = 0.05) -> floa
     """Power with n visitors per arm, as R's ``power.prop.test`` computes it (the far tail ignored)."""
     _check_rates(p1, p2)
     p_bar = (p1 + p2) / 2
-    z_a = stats.norm.ppf(1 - alpha / 2)
+    z_a = special.ndtri(1 - alpha / 2)
     num = math.sqrt(n) * abs(p1 - p2) - z_a * math.sqrt(2 * p_bar * (1 - p_bar))
-    return float(stats.norm.cdf(num / math.sqrt(p1 * (1 - p1) + p2 * (1 - p2))))
+    return float(special.ndtr(num / math.sqrt(p1 * (1 - p1) + p2 * (1 - p2))))
 
 
 def bonferroni_alpha(alpha: float, comparisons: int) -> float:
