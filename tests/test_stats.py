@@ -359,3 +359,20 @@ def test_adjustments_agree_with_statsmodels() -> None:
     assert benjamini_hochberg(p) == pytest.approx(multipletests(p, method="fdr_bh")[1], rel=1e-12)
     with pytest.raises(ValueError):
         holm([0.2, 1.5])
+
+
+@pytest.mark.parametrize(
+    "table",
+    [
+        [[12_000, 8_000], [11_800, 8_300]],
+        [[500, 300, 200], [480, 330, 190]],
+        [[3, 9], [7, 2]],
+    ],
+)
+def test_contingency_p_matches_scipy(table: list[list[int]]) -> None:
+    from scipy.stats import chi2_contingency
+
+    from archive.stats.srm import contingency_p
+
+    # scipy.stats.chi2_contingency(table, correction=False): Pearson's chi-square from the margins
+    assert contingency_p(table) == pytest.approx(chi2_contingency(table, correction=False)[1], rel=1e-10)

@@ -31,7 +31,7 @@ from archive.records.model import Record
 from archive.stats.meta import heterogeneity, interaction_test
 from archive.stats.multiple import benjamini_hochberg, holm
 from archive.stats.proportions import compare_rates, log_risk_ratio, mantel_haenszel_rr
-from archive.stats.srm import sample_ratio_test
+from archive.stats.srm import contingency_p, sample_ratio_test
 
 MIN_EXPECTED = 10.0
 Adjustment = Literal["bh", "holm"]
@@ -271,10 +271,8 @@ def _mix_check(record: Record, dim: str, arm: str, s: Settings) -> MixCheck:
     mh = mantel_haenszel_rr(strata)
     mix_p = None
     if len(cells) >= 2:
-        from scipy.stats import chi2_contingency
-
         table = [[t.visitors for _, t, _ in cells], [c.visitors for _, _, c in cells]]
-        mix_p = float(chi2_contingency(table, correction=False)[1])
+        mix_p = contingency_p(table)
     lifts = [compare_rates(*st).lift for st in strata]
     signs = {math.copysign(1, lift) for lift in lifts if lift}
     reversal = bool(

@@ -16,7 +16,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import optimize, special
+from scipy import special
 
 #: the longest exact sum computed before switching to quadrature
 MAX_EXACT_TERMS = 2_000_000
@@ -222,6 +222,8 @@ def lift_interval(treatment: BetaPosterior, control: BetaPosterior, level: float
             hi = hi * 2 + 1
             if hi > 1e9:
                 return math.inf
+        from scipy import optimize  # imported on first use: it costs a noticeable share of start-up
+
         return float(optimize.brentq(lambda x: function(x)[0] - target, lo, hi, xtol=1e-12, rtol=1e-12))
 
     return solve(tail), solve(1 - tail)

@@ -43,3 +43,18 @@ def sample_ratio_test(visitors: Sequence[int], planned_weights: Sequence[float])
         tuple(float(o) for o in observed / total),
         tuple(float(s) for s in shares),
     )
+
+
+def contingency_p(table: list[list[int]] | list[list[float]]) -> float:
+    """p-value of Pearson's chi-square test of independence of a contingency table, without continuity correction
+    (as ``scipy.stats.chi2_contingency(table, correction=False)``); expected counts from the margins."""
+    observed = np.asarray(table, dtype=float)
+    if observed.ndim != 2 or min(observed.shape) < 2:
+        raise ValueError("a contingency table needs at least two rows and two columns")
+    total = observed.sum()
+    expected = np.outer(observed.sum(axis=1), observed.sum(axis=0)) / total
+    if np.any(expected == 0):
+        raise ValueError("a row or column of the table is all zero")
+    chi_square = float(np.sum((observed - expected) ** 2 / expected))
+    df = (observed.shape[0] - 1) * (observed.shape[1] - 1)
+    return float(special.chdtrc(df, chi_square))
