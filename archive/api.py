@@ -368,6 +368,8 @@ class Archive:
         from archive.render.analysis import build_memo
         from archive.store.query import get_analysis
 
+        if prior not in ("uniform", "history"):
+            raise ValueError("--prior is uniform or history")
         engine = self._ready()
         record = self.record(record_id)
         s = settings or self.settings
@@ -382,8 +384,6 @@ class Archive:
             analysis = self._recompute(record, s)
         segments = analyze_segments(record, by, adjust, s) if by else None
         history = self._history(record) if prior == "history" else None
-        if prior not in ("uniform", "history"):
-            raise ValueError("--prior is uniform or history")
         return TestAnalysis(analysis, segments, build_memo(analysis, segments), history)
 
     def _recompute(self, record: Record, s: Settings) -> Analysis:
@@ -441,11 +441,11 @@ class Archive:
     def effects(self, segment: str | None = None) -> list[Effect]:
         """Every comparison of every finished test as an effect for pooling (or its segment effects for one
         dimension), from the store."""
-        from archive.analysis.jsonable import loads_list
+        from archive.analysis.jsonable import rebuild
         from archive.pooling.effects import Effect
-        from archive.store.query import effects_json
+        from archive.store.query import stored_effects
 
-        return [e for blob in effects_json(self._ready(), segment) for e in loads_list(Effect, blob)]
+        return [rebuild(Effect, item) for item in stored_effects(self._ready(), segment)]
 
     def pool(
         self, by: str = "theme", method: str = "REML", hksj: bool = True, include_untrusted: bool = False

@@ -226,26 +226,20 @@ def all_analyses(engine: Engine) -> list[StoredAnalysis]:
         return [StoredAnalysis(*row) for row in conn.execute(query.order_by(A.record_id))]
 
 
-def effects_json(engine: Engine, segment: str | None = None) -> list[str]:
-    """The stored effects of every pooled test (JSON lists, in start-date order), or its segment effects for one
-    dimension."""
+def stored_effects(engine: Engine, segment: str | None = None) -> list[dict[str, Any]]:
+    """The stored effects of every pooled test as plain dicts (records in file-name order), or their segment
+    effects for one dimension."""
+    import json
+
     column = ANALYSIS.c.effects_json if segment is None else ANALYSIS.c.segment_effects_json
     query = (
         select(column).select_from(ANALYSIS.join(RECORD, RECORD.c.id == ANALYSIS.c.record_id)).order_by(RECORD.c.path)
     )
     with engine.connect() as conn:
-        blobs = [b for (b,) in conn.execute(query)]
+        blobs = [b for (b,) in conn.execute(query) if b not in ("[]", "{}")]
     if segment is None:
-        return [b for b in blobs if b != "[]"]
-    import json
-
-    out = []
-    for blob in blobs:
-        if blob != "{}":
-            part = json.loads(blob).get(segment)
-            if part:
-                out.append(json.dumps(part))
-    return out
+        return [item for blob in blobs for item in json.loads(blob)]
+    return [item for blob in blobs for item in json.loads(blob).get(segment, [])]
 
 
 def all_records(engine: Engine) -> list[Record]:

@@ -228,13 +228,8 @@ def sync(
             report.unchanged = len(plan.unchanged)
             return report
         processed = _process_all(plan.to_process, s, progress, workers)
-        problems = [p for item in processed for p in item.problems]
         good = [item for item in processed if item.record_json is not None]
-        failed = [Path(item.name).stem for item in processed if item.record_json is None]
-        records = {item.name: record_from_json(item.record_json) for item in good if item.record_json}
-        summaries = [Summary.of(str(records_dir / name), r) for name, r in records.items()]
-        summaries += _known_summaries(conn, records_dir, plan.unchanged)
-        problems += archive_problems(summaries, LineFinder(), failed)
+        records, problems = _problems(conn, records_dir, processed, plan.unchanged)
         if errors(problems):
             raise ArchiveInvalid(problems)
         report.warnings = sorted(p for p in problems if p.severity == "warning")
@@ -283,17 +278,26 @@ def check_against_store(records_dir: Path, engine: Engine) -> CheckResult:
         known = _known_records(conn)
         plan = _scan(records_dir, known, None, False)
         processed = _process_all(plan.to_process, None, None, 1)
-        problems = [p for item in processed for p in item.problems]
-        failed = [Path(item.name).stem for item in processed if item.record_json is None]
-        records = {item.name: record_from_json(item.record_json) for item in processed if item.record_json}
         present = {p.name for p in plan.files}
-        gone = [name for name in known if name not in present]
-        if records or failed or gone:
-            summaries = [Summary.of(str(records_dir / name), r) for name, r in records.items()]
-            summaries += _known_summaries(conn, records_dir, plan.unchanged)
-            problems += archive_problems(summaries, LineFinder(), failed)
+        if processed or any(name not in present for name in known):
+            _, problems = _problems(conn, records_dir, processed, plan.unchanged)
+        else:  # nothing changed since the last sync, which passed the archive-wide checks
+            problems = []
         problems += _stored_warnings(conn, records_dir, plan.unchanged)
     return CheckResult(len(plan.files), sorted(problems))
+
+
+def _problems(
+    conn: Connection, records_dir: Path, processed: list[_Processed], unchanged: set[str]
+) -> tuple[dict[str, Record], list[Problem]]:
+    """The records read afresh (by file name) and every problem: their own, and the archive-wide checks over them
+    and the stored summaries of the unchanged files."""
+    records = {item.name: record_from_json(item.record_json) for item in processed if item.record_json}
+    failed = [Path(item.name).stem for item in processed if item.record_json is None]
+    summaries = [Summary.of(str(records_dir / name), r) for name, r in records.items()]
+    summaries += _known_summaries(conn, records_dir, unchanged)
+    problems = [p for item in processed for p in item.problems]
+    return records, problems + archive_problems(summaries, LineFinder(), failed)
 
 
 # --- reading and writing rows ---------------------------------------------------------------------------
