@@ -1,8 +1,8 @@
 """Was the history worth using? Replaying the archive in date order with priors built only from earlier tests.
 
-For each trusted comparison, in the order its test started, the prior is built from the comparisons of tests
-that started earlier (its theme when that has at least ``MIN_GROUP`` comparisons, else all earlier ones; none
-before ``MIN_HISTORY`` earlier comparisons exist). Two forecasts are scored against what the test then showed:
+For each trusted comparison, in the order its test started, the prior is the history model's
+(:mod:`archive.planning.priors`) for its first theme, fitted to the comparisons of tests that started earlier
+(none before ``MIN_HISTORY`` earlier comparisons exist). Two forecasts are scored against what the test then showed:
 
 * the 95% predictive interval of the observed log lift, Normal(mu, sd^2 + se^2): its coverage and mean width;
 * P(significant win) = P(y / se > z) under that predictive distribution, scored by the Brier score against
@@ -23,12 +23,20 @@ import math
 from dataclasses import dataclass, field
 from typing import Any
 
+import numpy as np
 from scipy import stats
 
 from archive.analysis import json_safe
-from archive.planning.priors import LiftPrior, lift_prior
+from archive.planning.priors import (
+    DEFAULT_HYPERPRIOR,
+    Hyperprior,
+    ThemeSums,
+    history_grid,
+    predictive,
+    primary_themes,
+)
 from archive.pooling.effects import Effect
-from archive.pooling.groups import MIN_GROUP, jeffreys
+from archive.pooling.groups import jeffreys
 
 MIN_HISTORY = 10
 FLAT_SD = 0.25
@@ -72,7 +80,10 @@ class Calibration:
         return json_safe(dataclasses.asdict(self))  # type: ignore[no-any-return]
 
 
-def _score(rows: list[tuple[float, float, bool, bool]]) -> Score:
+Row = tuple[float, float, bool, bool]  # forecast P(win), interval width, covered, won
+
+
+def _score(rows: list[Row]) -> Score:
     """rows: (forecast P(win), interval width, covered, won)."""
     if not rows:
         return Score(0, None, None, None, None, None)
@@ -87,7 +98,7 @@ def _score(rows: list[tuple[float, float, bool, bool]]) -> Score:
     )
 
 
-def _forecast(prior_mean: float, prior_sd: float, e: Effect) -> tuple[float, float, bool, bool]:
+def _forecast(prior_mean: float, prior_sd: float, e: Effect) -> Row:
     # the estimate varies with its own sampling variance (whole control); "won" is read, as everywhere, on the
     # pooling scale (z against the split control's standard error)
     sampling = e.sampling_variance if e.sampling_variance is not None else e.variance
@@ -116,19 +127,57 @@ def reliability_table(rows: list[tuple[float, bool]]) -> list[ReliabilityBin]:
     return out
 
 
-def calibrate(effects: list[Effect]) -> Calibration:
-    trusted = sorted((e for e in effects if e.trusted), key=lambda e: (e.started or dt.date.min, e.record_id, e.arm))
-    history_rows, flat_rows, running_rows, skipped = [], [], [], 0
-    for e in trusted:
-        earlier = [x for x in trusted if x.started and e.started and x.started < e.started]
-        if len(earlier) < MIN_HISTORY:
-            skipped += 1
-            continue
-        prior: LiftPrior = lift_prior(earlier, e.themes[0])
-        history_rows.append(_forecast(prior.mean, prior.sd, e))
-        flat_rows.append(_forecast(0.0, FLAT_SD, e))
-        wins = sum(x.log_rr / x.se > Z for x in earlier)
-        running_rows.append((wins + 0.5) / (len(earlier) + 1))
+def _replay(effects: list[Effect], hyper: Hyperprior) -> tuple[list[Row], list[Row], list[float], int]:
+    """Replay the archive in start-date order. The history model's sufficient statistics grow test date by test
+    date, so each forecast sees exactly the comparisons of tests that started earlier (undated ones never).
+    Returns the history rows, the flat-prior rows, the running win rates and the number skipped."""
+    trusted = sorted(
+        (e for e in effects if e.trusted and not e.double_zero),
+        key=lambda e: (e.started or dt.date.min, e.record_id, e.arm),
+    )
+    names, index = primary_themes(trusted)
+    tau2, omega2, log_prior = history_grid(hyper)
+    sums = ThemeSums.empty(tau2, len(names))
+    history_rows: list[Row] = []
+    flat_rows: list[Row] = []
+    running_rows: list[float] = []
+    skipped = earlier = wins = 0
+    start = 0
+    while start < len(trusted):
+        day = trusted[start].started
+        stop = start
+        while stop < len(trusted) and trusted[stop].started == day:
+            stop += 1
+        block = range(start, stop)
+        for i in block:
+            e = trusted[i]
+            if day is None or earlier < MIN_HISTORY:
+                skipped += 1
+                continue
+            post = predictive(sums, int(index[i]), omega2, log_prior, hyper.mean_sd)
+            history_rows.append(_forecast(post.mean, post.sd, e))
+            flat_rows.append(_forecast(0.0, FLAT_SD, e))
+            running_rows.append((wins + 0.5) / (earlier + 1))
+        if day is not None:
+            sums.add(
+                np.array([trusted[i].log_rr for i in block]),
+                np.array([trusted[i].variance for i in block]),
+                index[start:stop],
+            )
+            earlier += len(block)
+            wins += sum(trusted[i].log_rr / trusted[i].se > Z for i in block)
+        start = stop
+    return history_rows, flat_rows, running_rows, skipped
+
+
+def forecast_rows(effects: list[Effect], hyper: Hyperprior = DEFAULT_HYPERPRIOR) -> list[tuple[float, bool]]:
+    """The replay's (history forecast of P(significant win), won) pairs, for pooling over archives."""
+    return [(r[0], r[3]) for r in _replay(effects, hyper)[0]]
+
+
+def calibrate(effects: list[Effect], hyper: Hyperprior = DEFAULT_HYPERPRIOR) -> Calibration:
+    """Score the history prior's forecasts against the flat prior and the running win rate (module docstring)."""
+    history_rows, flat_rows, running_rows, skipped = _replay(effects, hyper)
     won = [r[3] for r in history_rows]
     running = _score([(f, 0.0, False, w) for f, w in zip(running_rows, won, strict=True)])
     running.coverage = running.mean_width = None  # a win rate forecasts no interval of the lift
@@ -140,7 +189,9 @@ def calibrate(effects: list[Effect]) -> Calibration:
         FLAT_SD,
         [
             f"Priors use only tests that started earlier; the first {MIN_HISTORY} comparisons have no history.",
-            f"A theme needs {MIN_GROUP} earlier comparisons for its own prior; otherwise all earlier ones are used.",
+            "Each forecast is the history model's prior for the comparison's first theme: the theme's earlier "
+            "tests, pulled toward the archive mean by as much as earlier tests say themes differ.",
+            hyper.label() + ".",
             "Well calibrated: coverage near 95% with narrow intervals, a low Brier score, and in the reliability "
             "table each bin's mean forecast inside the interval of its observed share.",
             "The running win rate is the baseline to beat: a history prior that does not beat it adds nothing "

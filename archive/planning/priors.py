@@ -1,8 +1,22 @@
 """From history to a prior: what the archive says about the true lift of the next test of a kind.
 
-The prior for a new test's true relative lift is the pooling's predictive distribution, normal on the log scale
-with mean mu and variance tau^2 + SE(mu)^2 (plain random-effects SE), from the comparisons of the theme (and page
-area, when given). With fewer than ``MIN_GROUP`` comparisons it falls back to the whole archive, with a warning.
+The prior for a new test's true relative lift comes from a three-level normal model of the archive's trusted
+comparisons (a hierarchical normal model, Gelman et al., BDA3 ch. 5; in meta-analysis the three-level model of
+Konstantopoulos 2011), on the log of (1 + lift):
+
+* each comparison's estimate y_i ~ Normal(theta_i, v_i), v_i its sampling variance;
+* a comparison's true effect theta_i ~ Normal(mu_j, tau^2) around the mean mu_j of its theme j (its first theme);
+* theme means mu_j ~ Normal(M, omega^2) around the archive-wide mean M.
+
+The hyperprior (:class:`Hyperprior`, stated in every prior's label) is weakly informative on the scale of
+conversion lifts: M ~ Normal(0, 0.03^2) (the average true lift over all kinds of change lies within about +/-6%),
+omega ~ half-normal(0.02) (kinds of change differ in their average lift by a few percent), tau uniform on
+[0, 0.3]. M and the theme means are integrated out in closed form; tau and omega on a grid (``GRID`` x ``GRID``
+points, denser near zero). The prior for a new test of theme j is the posterior predictive of a new comparison's
+true effect in that theme: a mixture of normals over the grid, summarised by its mean and standard deviation
+(:class:`LiftPrior`). A theme with few comparisons is pulled toward the archive mean by as much as the data say
+themes differ; a theme with none gets the archive mean with the between-theme spread.
+
 The baseline conversion rate of a page area gets a Beta prior fitted across that area's control arms
 (beta-binomial maximum marginal likelihood).
 """
@@ -10,15 +24,39 @@ The baseline conversion rate of a page area gets a Beta prior fitted across that
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
+from scipy import special, stats
 
 from archive.pooling.effects import Effect
 from archive.pooling.groups import MIN_GROUP, beta_binomial_fit
 from archive.records.model import Record
-from archive.stats.meta import random_effects
+
+GRID = 48  # grid points for tau and for omega
+
+
+@dataclass(frozen=True)
+class Hyperprior:
+    """The prior on the archive-level quantities of the history model (all on the log-lift scale)."""
+
+    mean_sd: float = 0.03  # M ~ Normal(0, mean_sd^2); common practice: most changes move conversion by a few %
+    between_themes_scale: float = 0.02  # omega ~ half-normal(scale); common practice, as above
+    spread_max: float = 0.3  # tau and omega range over [0, spread_max]; tau uniform there
+
+    def __post_init__(self) -> None:
+        if not (self.mean_sd > 0 and self.between_themes_scale > 0 and self.spread_max > 0):
+            raise ValueError("the hyperprior's scales must be > 0")
+
+    def label(self) -> str:
+        return (
+            f"hyperprior: archive mean log lift ~ Normal(0, {self.mean_sd:g}^2), between-theme sd ~ "
+            f"half-normal({self.between_themes_scale:g}), within-theme sd uniform on [0, {self.spread_max:g}]"
+        )
+
+
+DEFAULT_HYPERPRIOR = Hyperprior()
 
 
 @dataclass(frozen=True)
@@ -26,11 +64,16 @@ class LiftPrior:
     """Normal prior on the log of (1 + relative lift)."""
 
     source: str  # which comparisons it came from
-    comparisons: int
+    comparisons: int  # of the theme asked about
     mean: float
     sd: float
-    tau2: float
+    tau2: float  # posterior mean of the within-theme variance of true effects
     warning: str | None = None
+    archive_comparisons: int = 0  # all comparisons the model saw
+    themes: int = 0  # themes among them
+    omega: float = 0.0  # posterior mean of the between-theme sd
+    weight_on_theme: float = 0.0  # how much of the mean comes from the theme's own tests (0..1)
+    hyperprior: str = DEFAULT_HYPERPRIOR.label()
 
     @property
     def lift(self) -> float:
@@ -47,41 +90,157 @@ class LiftPrior:
     def label(self) -> str:
         low, high = self.interval()
         return (
-            f"history prior from {self.source} ({self.comparisons} comparisons): log(1 + lift) ~ "
-            f"Normal({self.mean:+.4f}, {self.sd:.4f}^2), i.e. lift {self.lift:+.1%}, 95% [{low:+.1%}, {high:+.1%}]"
+            f"history prior from {self.source}: log(1 + lift) ~ Normal({self.mean:+.4f}, {self.sd:.4f}^2), i.e. lift "
+            f"{self.lift:+.1%}, 95% [{low:+.1%}, {high:+.1%}]; the theme's own tests carry "
+            f"{self.weight_on_theme:.0%} of its mean"
         )
 
 
-def _fit(effects: list[Effect], source: str, warning: str | None = None) -> LiftPrior:
-    y = np.array([e.log_rr for e in effects])
-    v = np.array([e.variance for e in effects])
-    re = random_effects(y, v, "REML", hksj=False, prediction=False)
-    return LiftPrior(source, len(effects), re.mean, math.sqrt(re.tau2 + re.se**2), re.tau2, warning)
+@dataclass(frozen=True)
+class ThemeSums:
+    """Sufficient statistics of the history model: per grid value of tau^2 (rows) and theme (columns), the sums of
+    w, w y, w y^2 and log w over the theme's comparisons, with w = 1 / (v + tau^2)."""
+
+    tau2: np.ndarray  # (T,)
+    w: np.ndarray  # (T, J)
+    wy: np.ndarray
+    wyy: np.ndarray
+    log_w: np.ndarray
+    counts: np.ndarray  # (J,) comparisons per theme
+
+    @staticmethod
+    def empty(tau2: np.ndarray, themes: int) -> ThemeSums:
+        z = np.zeros((len(tau2), themes))
+        return ThemeSums(tau2, z, z.copy(), z.copy(), z.copy(), np.zeros(themes, dtype=int))
+
+    def add(self, y: np.ndarray, v: np.ndarray, theme: np.ndarray) -> None:
+        """Add comparisons (log lifts ``y``, variances ``v``, theme indices) in place."""
+        w = 1 / (v[None, :] + self.tau2[:, None])
+        for total, values in ((self.w, w), (self.wy, w * y), (self.wyy, w * y * y), (self.log_w, np.log(w))):
+            np.add.at(total.T, theme, values.T)  # rows of the transposed view are themes
+        np.add.at(self.counts, theme, 1)
 
 
-def lift_prior(effects: list[Effect], theme: str, page_area: str | None = None) -> LiftPrior:
-    """The prior for a new test of ``theme`` (on ``page_area``), from trusted comparisons: the theme on that
-    page area, else the theme anywhere, else the whole archive, whichever first has ``MIN_GROUP`` comparisons."""
-    trusted = [e for e in effects if e.trusted]
+def history_grid(hyper: Hyperprior) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """tau^2 (T,), omega^2 (O,) and the log prior weight of each (tau, omega) pair (T, O): midpoints of equal
+    slices of u in [0, 1] mapped to spread = spread_max u^2 (denser near zero), weighted by the prior density
+    times the Jacobian 2 spread_max u."""
+    u = (np.arange(GRID) + 0.5) / GRID
+    spread = hyper.spread_max * u**2
+    log_jacobian = np.log(u)
+    log_tau = log_jacobian  # uniform density on tau
+    log_omega = log_jacobian - spread**2 / (2 * hyper.between_themes_scale**2)
+    return spread**2, spread**2, log_tau[:, None] + log_omega[None, :]
+
+
+@dataclass(frozen=True)
+class Predictive:
+    """The posterior predictive of a new comparison's true effect: a normal mixture over the (tau, omega) grid."""
+
+    weights: np.ndarray  # (T, O) posterior weight of each grid point
+    means: np.ndarray  # (T, O) predictive mean at each grid point
+    variances: np.ndarray  # (T, O) predictive variance at each grid point
+    tau2: float  # posterior mean of tau^2
+    omega: float  # posterior mean of omega
+    weight_on_theme: float  # posterior mean of the weight of the theme's own comparisons in the mean
+
+    @property
+    def mean(self) -> float:
+        return float(np.sum(self.weights * self.means))
+
+    @property
+    def sd(self) -> float:
+        second = float(np.sum(self.weights * (self.variances + self.means**2)))
+        return math.sqrt(max(second - self.mean**2, 0.0))
+
+    def cdf(self, x: float) -> float:
+        return float(np.sum(self.weights * special.ndtr((x - self.means) / np.sqrt(self.variances))))
+
+
+def predictive(
+    sums: ThemeSums, theme: int | None, omega2: np.ndarray, log_prior: np.ndarray, mean_sd: float
+) -> Predictive:
+    """Posterior predictive of a new comparison's true effect in ``theme`` (an index into the sums' themes, or
+    None for a theme with no comparisons yet), given the grid of tau^2 (in ``sums``) and omega^2 with the log prior
+    weight of each pair. M and the theme means are integrated out in closed form (normal-normal algebra: with
+    a_j = 1 / (omega^2 + 1 / s_j), M's posterior precision is sum a_j + 1 / mean_sd^2)."""
+    present = sums.counts > 0
+    s, wy, wyy, log_w = (x[:, present] for x in (sums.w, sums.wy, sums.wyy, sums.log_w))
+    o2 = omega2[None, :, None]
+    ybar = wy / np.where(s > 0, s, 1.0)  # (T, J) theme means given tau^2
+    within = np.sum(wyy - wy * ybar, axis=1)  # sum w (y - ybar_j)^2
+    a = s[:, None, :] / (1 + o2 * s[:, None, :])  # (T, O, J)
+    total = np.sum(a, axis=2) + 1 / mean_sd**2  # posterior precision of M
+    m_hat = np.sum(a * ybar[:, None, :], axis=2) / total
+    log_lik = (
+        0.5 * np.sum(log_w, axis=1)[:, None]
+        - 0.5 * np.sum(np.log1p(o2 * s[:, None, :]), axis=2)
+        - 0.5 * within[:, None]
+        - 0.5 * (np.sum(a * ybar[:, None, :] ** 2, axis=2) - total * m_hat**2)
+        - 0.5 * np.log(total)
+        + log_prior
+    )
+    p = np.exp(log_lik - np.max(log_lik))
+    p /= np.sum(p)
+    t2, o2 = sums.tau2[:, None], omega2[None, :]
+    if theme is not None and present[theme]:
+        j = int(np.sum(present[:theme]))
+        shrink = 1 / (1 + o2 * s[:, j : j + 1])  # weight on the archive mean
+        means = (1 - shrink) * ybar[:, j : j + 1] + shrink * m_hat
+        variances = o2 * shrink + shrink**2 / total + t2
+        own = float(np.sum(p * (1 - shrink)))
+    else:
+        means = m_hat
+        variances = o2 + 1 / total + t2
+        own = 0.0
+    return Predictive(p, means, variances, float(np.sum(p * t2)), float(np.sum(p * np.sqrt(o2))), own)
+
+
+def primary_themes(effects: Sequence[Effect]) -> tuple[list[str], np.ndarray]:
+    names = sorted({e.themes[0] for e in effects})
+    index = {name: i for i, name in enumerate(names)}
+    return names, np.array([index[e.themes[0]] for e in effects], dtype=int)
+
+
+def lift_prior(
+    effects: list[Effect], theme: str, page_area: str | None = None, hyper: Hyperprior = DEFAULT_HYPERPRIOR
+) -> LiftPrior:
+    """The prior for a new test of ``theme`` from the archive's trusted comparisons (each counted once, in its
+    first theme). ``page_area`` is accepted for the caller's convenience: the lift prior is by theme; the page
+    area sets the baseline rate (:func:`baseline_prior`)."""
+    trusted = [e for e in effects if e.trusted and not e.double_zero]
     if len(trusted) < 2:
         raise ValueError("the archive needs at least two trusted comparisons to build a prior")
-    candidates = []
-    if page_area is not None:
-        on_area = [e for e in trusted if theme in e.themes and e.page_area == page_area]
-        candidates.append((f"theme {theme} on {page_area}", on_area))
-    candidates.append((f"theme {theme}", [e for e in trusted if theme in e.themes]))
-    first_name, first_group = candidates[0]
-    for name, group in candidates:
-        if len(group) >= MIN_GROUP:
-            note = None
-            if name != first_name:
-                note = f"only {len(first_group)} comparison(s) for {first_name}: using {name} instead"
-            return _fit(group, name, note)
-    warning = (
-        f"only {len(first_group)} comparison(s) for {first_name}: using the whole archive "
-        f"({len(trusted)} comparisons) instead"
+    names, index = primary_themes(trusted)
+    tau2, omega2, log_prior = history_grid(hyper)
+    sums = ThemeSums.empty(tau2, len(names))
+    sums.add(np.array([e.log_rr for e in trusted]), np.array([e.variance for e in trusted]), index)
+    j = names.index(theme) if theme in names else None
+    post = predictive(sums, j, omega2, log_prior, hyper.mean_sd)
+    k = 0 if j is None else int(sums.counts[j])
+    source = (
+        f"theme {theme} ({k} comparisons) within the whole archive ({len(trusted)} comparisons, {len(names)} themes)"
     )
-    return _fit(trusted, "the whole archive", warning)
+    warning = None
+    if k < MIN_GROUP:
+        warning = (
+            f"only {k} comparison(s) of theme {theme}: the prior leans mostly on the whole archive"
+            if k
+            else f"no comparison of theme {theme} yet: the whole archive's prior, widened by how much themes differ"
+        )
+    return LiftPrior(
+        source,
+        k,
+        post.mean,
+        post.sd,
+        post.tau2,
+        warning,
+        len(trusted),
+        len(names),
+        post.omega,
+        post.weight_on_theme,
+        hyper.label(),
+    )
 
 
 @dataclass(frozen=True)

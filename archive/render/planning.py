@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import math
+
 from archive.planning.calibration import Calibration
 from archive.planning.plan import TestPlan
 from archive.planning.priors import BaselinePrior, InformedLift, LiftPrior
@@ -14,6 +16,8 @@ def prior_memo(prior: LiftPrior, baseline: BaselinePrior | None, lift: float | N
     lead = [
         f"From {prior.source}: expect a true lift around {pct(prior.lift, 1, True)}; 95% of such tests land between "
         f"{pct(low, 1, True)} and {pct(high, 1, True)}; the chance it helps at all is {prior.prob_above(0.0):.0%}.",
+        f"The theme's own tests carry {prior.weight_on_theme:.0%} of that expectation; the rest comes from the "
+        "whole archive, because kinds of change differ less than single tests do.",
         f"Technically: {prior.label()}.",
     ]
     if prior.warning:
@@ -21,7 +25,9 @@ def prior_memo(prior: LiftPrior, baseline: BaselinePrior | None, lift: float | N
     bullets = [
         f"P(true lift > 0) = {prior.prob_above(0.0):.3f}",
         f"expected lift {pct(prior.lift, 2, True)}; 95% of true lifts of such tests between {pct(low, 1, True)} and "
-        f"{pct(high, 1, True)} (tau² {prior.tau2:.5f} between tests plus the uncertainty of the mean)",
+        f"{pct(high, 1, True)}",
+        f"true lifts of tests within a theme spread by sd {math.sqrt(prior.tau2):.4f} on the log scale; theme "
+        f"averages differ by sd {prior.omega:.4f} (posterior means)",
     ]
     if lift is not None:
         bullets.append(f"P(true lift > {pct(lift, 1, True)}) = {prior.prob_above(lift):.3f}")
@@ -31,7 +37,17 @@ def prior_memo(prior: LiftPrior, baseline: BaselinePrior | None, lift: float | N
             f"baseline conversion on {baseline.page_area}: Beta({baseline.alpha:.1f}, {baseline.beta:.1f}) fitted to "
             f"{baseline.controls} control arms, mean {pct(baseline.mean, 2)}, 95% [{pct(b_low, 2)}, {pct(b_high, 2)}]"
         )
-    return Memo("Prior for a new test", lead, [Section("What history says", bullets=bullets)])
+    assumptions = [
+        "Three-level normal model of the trusted comparisons on the log scale: tests within their first theme, "
+        "themes within the archive (Gelman et al., BDA3 ch. 5); each comparison counted once.",
+        prior.hyperprior[0].upper() + prior.hyperprior[1:] + ".",
+        "The lift prior is by theme; the page area sets only the baseline conversion rate.",
+    ]
+    return Memo(
+        "Prior for a new test",
+        lead,
+        [Section("What history says", bullets=bullets), Section("Assumptions", bullets=assumptions)],
+    )
 
 
 def plan_memo(p: TestPlan) -> Memo:
@@ -86,7 +102,10 @@ def informed_section(items: list[InformedLift], prior: LiftPrior) -> Section:
     )
     return Section(
         "With the history prior",
-        paragraphs=[f"{prior.label()}; combined with each comparison's normal likelihood of the log lift."]
+        paragraphs=[
+            f"{prior.label()}; combined with each comparison's normal likelihood of the log lift.",
+            prior.hyperprior[0].upper() + prior.hyperprior[1:] + ".",
+        ]
         + ([f"Warning: {prior.warning}."] if prior.warning else []),
         tables=[table],
     )
