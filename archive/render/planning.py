@@ -154,6 +154,13 @@ def calibration_memo(c: Calibration) -> Memo:
             if c.history.brier < c.running.brier
             else "History does not beat the running win rate: it adds nothing beyond how often tests win."
         )
+    filled = [b for b in c.reliability if b.forecasts and b.observed_low is not None and b.observed_high is not None]
+    if filled:
+        inside = sum(b.observed_low <= (b.mean_forecast or 0.0) <= b.observed_high for b in filled)  # type: ignore[operator]
+        lead.append(
+            f"Reliability: in {inside} of {len(filled)} forecast bins the mean forecast lies inside the interval of "
+            "the observed share of wins."
+        )
     bins = Table(
         ["P(win) forecast", "comparisons", "mean forecast", "observed wins (Jeffreys 95%)"],
         [
