@@ -508,11 +508,12 @@ class Archive:
                 win_rate = groups[theme].wins.shrunk
         return plan_test(base, minimum_lift, prior=history, theme_win_rate=win_rate, **options)
 
-    def calibrate(self) -> Calibration:
-        """Replay the archive in date order: forecasts from earlier tests against what happened."""
+    def calibrate(self, progress: Callable[[int, int], None] | None = None) -> Calibration:
+        """Replay the archive in date order: forecasts from earlier tests against what happened; ``progress`` is
+        told (comparisons replayed, all comparisons) as the replay goes."""
         from archive.planning.calibration import calibrate
 
-        return calibrate(self.effects())
+        return calibrate(self.effects(), progress=progress)
 
     def build_site(
         self,

@@ -20,6 +20,7 @@ from archive.cli.common import (
     open_archive,
     out,
     ready,
+    show_progress,
     user_errors,
 )
 from archive.cli.values import share_option
@@ -161,7 +162,14 @@ def calibrate(
     with user_errors():
         archive = open_archive(records, db, no_sync)
         ready(archive)
-        result = archive.calibrate()
+        if show_progress():
+            from rich.progress import Progress
+
+            with Progress(console=err, transient=True) as bar:
+                task = bar.add_task("replaying the archive", total=None)
+                result = archive.calibrate(progress=lambda done, total: bar.update(task, completed=done, total=total))
+        else:
+            result = archive.calibrate()
     if fmt is MemoFormat.json:
         sys.stdout.write(json.dumps(result.to_dict(), indent=2) + "\n")
     elif fmt is MemoFormat.csv:  # the reliability table: forecast bins against what happened

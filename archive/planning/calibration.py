@@ -20,19 +20,20 @@ from __future__ import annotations
 import dataclasses
 import datetime as dt
 import math
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
-from scipy import stats
+from scipy import special, stats
 
 from archive.analysis import json_safe
 from archive.planning.priors import (
     DEFAULT_HYPERPRIOR,
     Hyperprior,
     ThemeSums,
+    fit_history,
     history_grid,
-    predictive,
     primary_themes,
 )
 from archive.pooling.effects import Effect
@@ -103,7 +104,7 @@ def _forecast(prior_mean: float, prior_sd: float, e: Effect) -> Row:
     # pooling scale (z against the split control's standard error)
     sampling = e.sampling_variance if e.sampling_variance is not None else e.variance
     spread = math.sqrt(prior_sd**2 + sampling)
-    p_win = float(stats.norm.sf((Z * e.se - prior_mean) / spread))
+    p_win = float(special.ndtr((prior_mean - Z * e.se) / spread))
     covered = abs(e.log_rr - prior_mean) <= Z * spread
     won = e.log_rr / e.se > Z
     return p_win, 2 * Z * spread, covered, won
@@ -127,10 +128,13 @@ def reliability_table(rows: list[tuple[float, bool]]) -> list[ReliabilityBin]:
     return out
 
 
-def _replay(effects: list[Effect], hyper: Hyperprior) -> tuple[list[Row], list[Row], list[float], int]:
+def _replay(
+    effects: list[Effect], hyper: Hyperprior, progress: Callable[[int, int], None] | None = None
+) -> tuple[list[Row], list[Row], list[float], int]:
     """Replay the archive in start-date order. The history model's sufficient statistics grow test date by test
     date, so each forecast sees exactly the comparisons of tests that started earlier (undated ones never).
-    Returns the history rows, the flat-prior rows, the running win rates and the number skipped."""
+    Returns the history rows, the flat-prior rows, the running win rates and the number skipped; ``progress`` is
+    told (comparisons done, all comparisons) after each test date."""
     trusted = sorted(
         (e for e in effects if e.trusted and not e.double_zero),
         key=lambda e: (e.started or dt.date.min, e.record_id, e.arm),
@@ -149,12 +153,13 @@ def _replay(effects: list[Effect], hyper: Hyperprior) -> tuple[list[Row], list[R
         while stop < len(trusted) and trusted[stop].started == day:
             stop += 1
         block = range(start, stop)
+        fitted = None if day is None or earlier < MIN_HISTORY else fit_history(sums, omega2, log_prior, hyper.mean_sd)
         for i in block:
             e = trusted[i]
-            if day is None or earlier < MIN_HISTORY:
+            if fitted is None:
                 skipped += 1
                 continue
-            post = predictive(sums, int(index[i]), omega2, log_prior, hyper.mean_sd)
+            post = fitted.predict(int(index[i]))
             history_rows.append(_forecast(post.mean, post.sd, e))
             flat_rows.append(_forecast(0.0, FLAT_SD, e))
             running_rows.append((wins + 0.5) / (earlier + 1))
@@ -167,6 +172,8 @@ def _replay(effects: list[Effect], hyper: Hyperprior) -> tuple[list[Row], list[R
             earlier += len(block)
             wins += sum(trusted[i].log_rr / trusted[i].se > Z for i in block)
         start = stop
+        if progress is not None:
+            progress(stop, len(trusted))
     return history_rows, flat_rows, running_rows, skipped
 
 
@@ -175,9 +182,13 @@ def forecast_rows(effects: list[Effect], hyper: Hyperprior = DEFAULT_HYPERPRIOR)
     return [(r[0], r[3]) for r in _replay(effects, hyper)[0]]
 
 
-def calibrate(effects: list[Effect], hyper: Hyperprior = DEFAULT_HYPERPRIOR) -> Calibration:
+def calibrate(
+    effects: list[Effect],
+    hyper: Hyperprior = DEFAULT_HYPERPRIOR,
+    progress: Callable[[int, int], None] | None = None,
+) -> Calibration:
     """Score the history prior's forecasts against the flat prior and the running win rate (module docstring)."""
-    history_rows, flat_rows, running_rows, skipped = _replay(effects, hyper)
+    history_rows, flat_rows, running_rows, skipped = _replay(effects, hyper, progress)
     won = [r[3] for r in history_rows]
     running = _score([(f, 0.0, False, w) for f, w in zip(running_rows, won, strict=True)])
     running.coverage = running.mean_width = None  # a win rate forecasts no interval of the lift

@@ -157,43 +157,69 @@ class Predictive:
         return float(np.sum(self.weights * special.ndtr((x - self.means) / np.sqrt(self.variances))))
 
 
-def predictive(
-    sums: ThemeSums, theme: int | None, omega2: np.ndarray, log_prior: np.ndarray, mean_sd: float
-) -> Predictive:
-    """Posterior predictive of a new comparison's true effect in ``theme`` (an index into the sums' themes, or
-    None for a theme with no comparisons yet), given the grid of tau^2 (in ``sums``) and omega^2 with the log prior
-    weight of each pair. M and the theme means are integrated out in closed form (normal-normal algebra: with
-    a_j = 1 / (omega^2 + 1 / s_j), M's posterior precision is sum a_j + 1 / mean_sd^2)."""
+@dataclass(frozen=True)
+class HistoryPosterior:
+    """The history model fitted on the (tau, omega) grid: the posterior weight of each grid point and, per point,
+    what the themes' predictions need. Weights do not depend on the theme asked about, so one fit serves them all."""
+
+    weights: np.ndarray  # (T, O)
+    tau2: np.ndarray  # (T, 1)
+    omega2: np.ndarray  # (1, O)
+    theme_w: np.ndarray  # (T, J) sum of weights w of each theme present
+    theme_mean: np.ndarray  # (T, J) weighted mean of each theme present, given tau^2
+    archive_mean: np.ndarray  # (T, O) posterior mean of M
+    archive_precision: np.ndarray  # (T, O) posterior precision of M
+    column: np.ndarray  # (themes in the sums,) column of each theme among those present, -1 if absent
+
+    def predict(self, theme: int | None) -> Predictive:
+        """Posterior predictive of a new comparison's true effect in ``theme`` (an index into the sums' themes, or
+        None for a theme with no comparisons yet)."""
+        p, t2, o2, m_hat, total = self.weights, self.tau2, self.omega2, self.archive_mean, self.archive_precision
+        j = -1 if theme is None else int(self.column[theme])
+        if j >= 0:
+            shrink = 1 / (1 + o2 * self.theme_w[:, j : j + 1])  # weight on the archive mean
+            means = (1 - shrink) * self.theme_mean[:, j : j + 1] + shrink * m_hat
+            variances = o2 * shrink + shrink**2 / total + t2
+            own = float(np.sum(p * (1 - shrink)))
+        else:
+            means = m_hat
+            variances = o2 + 1 / total + t2
+            own = 0.0
+        return Predictive(p, means, variances, float(np.sum(p * t2)), float(np.sum(p * np.sqrt(o2))), own)
+
+
+def fit_history(sums: ThemeSums, omega2: np.ndarray, log_prior: np.ndarray, mean_sd: float) -> HistoryPosterior:
+    """Posterior weights of the (tau^2, omega^2) grid (tau^2 in ``sums``) given the log prior weight of each pair.
+    M and the theme means are integrated out in closed form (normal-normal algebra: with a_j = 1 / (omega^2 +
+    1 / s_j), M's posterior precision is sum a_j + 1 / mean_sd^2)."""
     present = sums.counts > 0
     s, wy, wyy, log_w = (x[:, present] for x in (sums.w, sums.wy, sums.wyy, sums.log_w))
-    o2 = omega2[None, :, None]
     ybar = wy / np.where(s > 0, s, 1.0)  # (T, J) theme means given tau^2
     within = np.sum(wyy - wy * ybar, axis=1)  # sum w (y - ybar_j)^2
-    a = s[:, None, :] / (1 + o2 * s[:, None, :])  # (T, O, J)
-    total = np.sum(a, axis=2) + 1 / mean_sd**2  # posterior precision of M
-    m_hat = np.sum(a * ybar[:, None, :], axis=2) / total
+    spread = 1 + s[:, :, None] * omega2[None, None, :]  # (T, J, O): 1 + s_j omega^2
+    a = s[:, :, None] / spread  # 1 / (omega^2 + 1 / s_j)
+    total = np.sum(a, axis=1) + 1 / mean_sd**2  # (T, O): posterior precision of M
+    m_hat = np.matmul(ybar[:, None, :], a)[:, 0, :] / total
     log_lik = (
         0.5 * np.sum(log_w, axis=1)[:, None]
-        - 0.5 * np.sum(np.log1p(o2 * s[:, None, :]), axis=2)
+        - 0.5 * np.sum(np.log(spread), axis=1)
         - 0.5 * within[:, None]
-        - 0.5 * (np.sum(a * ybar[:, None, :] ** 2, axis=2) - total * m_hat**2)
+        - 0.5 * (np.matmul((ybar * ybar)[:, None, :], a)[:, 0, :] - total * m_hat**2)
         - 0.5 * np.log(total)
         + log_prior
     )
     p = np.exp(log_lik - np.max(log_lik))
     p /= np.sum(p)
-    t2, o2 = sums.tau2[:, None], omega2[None, :]
-    if theme is not None and present[theme]:
-        j = int(np.sum(present[:theme]))
-        shrink = 1 / (1 + o2 * s[:, j : j + 1])  # weight on the archive mean
-        means = (1 - shrink) * ybar[:, j : j + 1] + shrink * m_hat
-        variances = o2 * shrink + shrink**2 / total + t2
-        own = float(np.sum(p * (1 - shrink)))
-    else:
-        means = m_hat
-        variances = o2 + 1 / total + t2
-        own = 0.0
-    return Predictive(p, means, variances, float(np.sum(p * t2)), float(np.sum(p * np.sqrt(o2))), own)
+    column = np.where(present, np.cumsum(present) - 1, -1)
+    return HistoryPosterior(p, sums.tau2[:, None], omega2[None, :], s, ybar, m_hat, total, column)
+
+
+def predictive(
+    sums: ThemeSums, theme: int | None, omega2: np.ndarray, log_prior: np.ndarray, mean_sd: float
+) -> Predictive:
+    """Posterior predictive of a new comparison's true effect in ``theme`` (:func:`fit_history`, then
+    :meth:`HistoryPosterior.predict`)."""
+    return fit_history(sums, omega2, log_prior, mean_sd).predict(theme)
 
 
 def primary_themes(effects: Sequence[Effect]) -> tuple[list[str], np.ndarray]:
