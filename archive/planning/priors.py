@@ -250,7 +250,8 @@ def lift_prior(
     warning = None
     if k < MIN_GROUP:
         warning = (
-            f"only {k} comparison(s) of theme {theme}: the prior leans mostly on the whole archive"
+            f"only {k} comparison(s) of theme {theme}: they carry {post.weight_on_theme:.0%} of the prior's mean, the "
+            "whole archive the rest"
             if k
             else f"no comparison of theme {theme} yet: the whole archive's prior, widened by how much themes differ"
         )
