@@ -160,6 +160,9 @@ class _Blocks:
         return np.bincount(self.group, weights=per_block, minlength=self.n)
 
 
+_EMPTY = np.zeros(0)
+
+
 @dataclass(frozen=True)
 class _State:
     """The model at one tau^2 per group: W = (V + tau^2 I)^-1 with V block-diagonal (a diagonal of own variances
@@ -198,25 +201,28 @@ class _Model:
             out[b.members] -= um * np.repeat(f * b.sum(um * x[b.members]), b.sizes)
         return out
 
-    def state(self, tau2: np.ndarray) -> _State:
+    def state(self, tau2: np.ndarray, residuals: bool = True) -> _State:
+        """W 1, 1'W1 and the mean at tau2; with ``residuals`` also r and W r (else empty)."""
         s, b = self.groups, self.blocks
         u = 1 / (self.own + s.spread(tau2))
-        f = np.zeros(0)
+        f = _EMPTY
+        w1 = u
         if b is not None:
             f = b.c / (1 + b.c * b.sum(u[b.members]))
-        w1 = self.apply(u, f, np.ones_like(u))
+            w1 = self.apply(u, f, np.ones_like(u))
         sw = s.sum(w1)
         mean = s.sum(w1 * self.y) / sw
+        if not residuals:
+            return _State(u, f, w1, sw, mean, _EMPTY, _EMPTY)
         r = self.y - s.spread(mean)
         return _State(u, f, w1, sw, mean, r, self.apply(u, f, r))
 
     def trace_w(self, st: _State) -> np.ndarray:
-        """tr W = sum u - sum over blocks of f sum u^2."""
-        t = self.groups.sum(st.u)
+        """tr W = sum u - sum over blocks of f sum u^2 (= 1'W1 for independent estimates)."""
         b = self.blocks
-        if b is not None:
-            t -= b.to_groups(st.f * b.sum(st.u[b.members] ** 2))
-        return t
+        if b is None:
+            return st.sw
+        return self.groups.sum(st.u) - b.to_groups(st.f * b.sum(st.u[b.members] ** 2))
 
     def q_at(self, tau2: np.ndarray) -> tuple[_State, np.ndarray]:
         st = self.state(tau2)
@@ -554,7 +560,7 @@ def _cd_prediction(
     for j in range(PREDICTION_POINTS - 1, -1, -1):  # u falling: chi-square target falling, tau^2 growing
         target = _by_distinct(lambda d, p=u[j]: special.chdtri(d, 1 - (p)), dfs)  # type: ignore[misc]
         tau2 = _solve_q(model, target, q0, active, k_var_y, atol, start=tau2)
-        st = model.state(tau2)
+        st = model.state(tau2, residuals=False)
         centres[:, j] = st.mean
         scales[:, j] = np.sqrt(tau2 + 1 / st.sw)
     centres = np.where(active[:, None], centres, 0.0)
