@@ -24,7 +24,9 @@ Intervals compared:
   evenly across its comparisons (Cochrane Handbook), comparisons independent;
 * ``whole-iid``: variances against the whole control, comparisons independent;
 * ``whole-shared`` (shipped): variances against the whole control and the known covariance 1/x_c - 1/n_c of two
-  comparisons against the same control in the generalised Q, the mean and tau^2.
+  comparisons against the same control in the generalised Q, the mean and tau^2;
+* ``hts-shared``: for comparison, the plug-in Higgins-Thompson-Spiegelhalter (2009) interval mean +/- t_{k-2}
+  sqrt(tau^2 + SE^2) with REML tau^2 and the same covariance.
 
     python scripts/check_coverage.py [--seeds 40] [--subsets 150] [--sims 2000] [--workers 4]
 
@@ -89,7 +91,20 @@ def _whole_shared(b: Batch) -> tuple[np.ndarray, np.ndarray]:
     return p.prediction_low, p.prediction_high
 
 
-METHODS: dict[str, Method] = {"split-iid": _split_iid, "whole-iid": _whole_iid, "whole-shared": _whole_shared}
+def _hts_shared(b: Batch) -> tuple[np.ndarray, np.ndarray]:
+    from archive.stats.meta_groups import pool_groups
+
+    p = pool_groups(b.y, b.v_whole, b.group, b.n, "REML", prediction=False, clusters=b.cluster, shared=b.shared)
+    assert p.hts_low is not None and p.hts_high is not None
+    return p.hts_low, p.hts_high
+
+
+METHODS: dict[str, Method] = {
+    "split-iid": _split_iid,
+    "whole-iid": _whole_iid,
+    "whole-shared": _whole_shared,
+    "hts-shared": _hts_shared,
+}
 
 
 def normal_normal(
