@@ -3,9 +3,11 @@
 Every treatment-vs-control comparison becomes one :class:`Effect`: the log risk ratio of conversion with its
 variance (1/x_t - 1/n_t + 1/x_c - 1/n_c; with a zero cell, 0.5 added to every cell), and, where the record
 allows it, the log ratio of revenue per visitor with its delta-method variance. In a test with several
-treatments the control's visitors, conversions and revenue are split evenly across its comparisons so that the
-shared control is not counted twice (Cochrane Handbook, "studies with more than two intervention groups"; the
-split is reported). Each effect carries the verdict and trust checks of the per-test analysis.
+treatments the comparisons share the control: ``sampling_variance`` is each one's variance against the whole
+control and ``shared_variance`` the covariance 1/x_c - 1/n_c of any two of them, which pooling uses (Gleser &
+Olkin 2009). ``variance`` keeps the control split evenly across its comparisons (Cochrane Handbook, "studies with
+more than two intervention groups"), for the methods that treat comparisons as independent (the meta-regression
+on date, Egger's test). Each effect carries the verdict and trust checks of the per-test analysis.
 """
 
 from __future__ import annotations
@@ -47,6 +49,9 @@ class Effect:
     segment: str | None = None  # for segment-level effects: "dimension=value"
     double_zero: bool = False  # no conversions (or only conversions) in both arms: no information on the ratio
     sampling_variance: float | None = None  # of log_rr against the whole control (None: as ``variance``)
+    # covariance of log_rr with each other comparison of the same test against the same (whole) control:
+    # 1/x_c - 1/n_c (0 for a two-arm test); the pooling model uses it with ``sampling_variance``
+    shared_variance: float = 0.0
 
     @property
     def lift(self) -> float:
@@ -106,12 +111,14 @@ def record_effects_from(record: Record, analysis: Analysis) -> list[Effect]:
     verdicts = {c.arm: c.verdict for c in analysis.comparisons}
     decision = record.decision
     ss_c = control.revenue_sum_of_squares
-    out = []
+    out: list[Effect] = []
+    terms: list[float] = []
     for t in treatments:
         n_t, x_t = float(t.visitors or 0), float(t.conversions or 0)
         log_rr, var, corrected = log_rr_split(x_t, n_t, x_c, n_c)
         # the estimate's own variance uses the whole control: splitting it is for pooling only
-        _, whole_var, _ = log_rr_split(x_t, n_t, x_c * m, n_c * m)
+        _, whole_var, whole_corrected = log_rr_split(x_t, n_t, x_c * m, n_c * m)
+        terms.append(_control_term(x_c * m, n_c * m, whole_corrected))
         rpv, rpv_var = _rpv(
             t.revenue,
             t.revenue_sum_of_squares,
@@ -145,7 +152,22 @@ def record_effects_from(record: Record, analysis: Analysis) -> list[Effect]:
                 sampling_variance=whole_var,
             )
         )
+    _share_control(out, terms)
     return out
+
+
+def _control_term(x_c: float, n_c: float, corrected: bool) -> float:
+    """The control's part 1/x_c - 1/n_c of a log risk ratio's variance (with 0.5 added where the comparison was)."""
+    return 1 / (x_c + 0.5) - 1 / (n_c + 1) if corrected else 1 / x_c - 1 / n_c
+
+
+def _share_control(effects: list[Effect], terms: list[float]) -> None:
+    """Comparisons against one control are correlated: cov(log RR_1, log RR_2) = var(log p_c) = 1/x_c - 1/n_c.
+    The smallest control term of the test is used for all (they differ only where 0.5 was added to some)."""
+    if len(effects) > 1:
+        shared = min(terms)
+        for e in effects:
+            e.shared_variance = shared
 
 
 def _double_zero(x_t: float, n_t: float, x_c: float, n_c: float) -> bool:
@@ -163,17 +185,21 @@ def segment_effects(
         return []
     control = record.control_arm().name
     m = len(base)
-    out = []
+    out: list[Effect] = []
     for value, cells in record.segments[dimension].items():
         c = cells.get(control)
         if c is None or c.visitors == 0:
             continue
+        here: list[Effect] = []
+        terms: list[float] = []
         for arm, parent in base.items():
             t = cells.get(arm)
             if t is None or t.visitors == 0:
                 continue
             log_rr, var, corrected = log_rr_split(t.conversions, t.visitors, c.conversions / m, c.visitors / m)
-            out.append(
+            _, whole_var, whole_corrected = log_rr_split(t.conversions, t.visitors, c.conversions, c.visitors)
+            terms.append(_control_term(c.conversions, c.visitors, whole_corrected))
+            here.append(
                 Effect(
                     **{
                         **parent.__dict__,
@@ -186,10 +212,13 @@ def segment_effects(
                         "rpv_variance": None,
                         "segment": f"{dimension}={value}",
                         "double_zero": _double_zero(t.conversions, t.visitors, c.conversions, c.visitors),
-                        "sampling_variance": log_rr_split(t.conversions, t.visitors, c.conversions, c.visitors)[1],
+                        "sampling_variance": whole_var,
+                        "shared_variance": 0.0,
                     }
                 )
             )
+        _share_control(here, terms)
+        out += here
     return out
 
 

@@ -1,8 +1,11 @@
 """Pooling the archive: which kinds of changes tend to win, by how much, how often, and how sure we are.
 
 ``pool(effects, by)`` groups the comparisons (see :mod:`archive.pooling.effects`) and, per group, runs a random-effects
-meta-analysis of the log risk ratios: REML tau^2 with the Hartung-Knapp-Sidik-Jonkman interval by default
-(Cochrane's current guidance; Knapp-Hartung floor max(1, q)), DerSimonian-Laird shown as the classic comparison;
+meta-analysis of the log risk ratios, the comparisons of one test correlated through their shared control
+(covariance 1/x_c - 1/n_c, the delta-method variance of log p_c; Gleser & Olkin 2009, "Stochastically dependent
+effect sizes", in the Handbook of Research Synthesis and Meta-Analysis): REML tau^2 with the
+Hartung-Knapp-Sidik-Jonkman interval by default (Cochrane's current guidance; Knapp-Hartung floor max(1, q)),
+DerSimonian-Laird shown as the classic comparison;
 the prediction interval for the next test of that kind carries tau^2's uncertainty through its confidence
 distribution (:func:`archive.stats.meta.cd_prediction_interval`). Groups with fewer than ``MIN_GROUP`` comparisons
 are kept and flagged. Win rates get Jeffreys intervals and the posterior of a hierarchical beta-binomial model
@@ -17,7 +20,7 @@ import math
 from collections import defaultdict
 from collections.abc import Callable
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, cast
 
 import numpy as np
 from scipy import special
@@ -26,7 +29,7 @@ from archive.analysis.results import json_safe
 from archive.analysis.verdict import VerdictRules, null_ship_rates
 from archive.pooling.effects import Effect
 from archive.stats.beta_binomial import hierarchical_rates
-from archive.stats.meta import HKSJ_FLOOR_LABEL, heterogeneity
+from archive.stats.meta import HKSJ_FLOOR_LABEL, TauMethod, heterogeneity
 from archive.stats.meta_groups import GroupPooling, pool_groups
 
 MIN_GROUP = 5  # fewer comparisons than this: shown with a warning (common practice for random-effects pooling)
@@ -195,7 +198,7 @@ class PoolResult:
     ranking: str
     groups: list[GroupResult]
     excluded: list[str]
-    split_controls: list[str]
+    split_controls: list[str]  # tests whose comparisons share one control (pooled with their covariance)
     programme: Programme
     between_groups: BetweenGroups | None
     meta_regression: MetaRegression | None
@@ -230,17 +233,17 @@ def pool(
         f"{e.record_id}/{e.arm}" + (f" ({e.segment})" if e.segment else "") for e in trusted if e.double_zero
     )
     used = [e for e in trusted if not e.double_zero]
-    split = sorted({f"{e.record_id} (control split {e.control_share} ways)" for e in used if e.control_share > 1})
+    split = sorted({f"{e.record_id} ({e.control_share} comparisons)" for e in used if e.control_share > 1})
     members: dict[str, list[Effect]] = defaultdict(list)
     for e in used:
         for key in key_of(e):
             members[key].append(e)
     names = sorted(members)
-    y = np.array([e.log_rr for name in names for e in members[name]])
-    v = np.array([e.variance for name in names for e in members[name]])
+    rows = [e for name in names for e in members[name]]
+    y, v, clusters, shared = pooling_inputs(rows)
     index = np.repeat(np.arange(len(names)), [len(members[name]) for name in names])
-    re = pool_groups(y, v, index, len(names), method, hksj=hksj)  # type: ignore[arg-type]
-    dl = pool_groups(y, v, index, len(names), "DL", hksj=False, prediction=False)
+    re = pool_groups(y, v, index, len(names), cast(TauMethod, method), hksj=hksj, clusters=clusters, shared=shared)
+    dl = pool_groups(y, v, index, len(names), "DL", hksj=False, prediction=False, clusters=clusters, shared=shared)
     groups = [_group(name, members[name], re, dl, i) for i, name in enumerate(names)]
     primary = _primary_groups(used, key_of, names)
     win_rates = _shrink_rates(groups, used, primary)
@@ -266,8 +269,10 @@ def pool(
         assumptions=[
             "Each comparison is an independent estimate: visitors are independent and each test ran to a fixed "
             "horizon.",
-            "A shared control is split evenly across its comparisons (Cochrane Handbook, studies with more than two "
-            "intervention groups); the comparisons stay somewhat correlated.",
+            "Comparisons against one shared control are correlated: each is pooled with its variance against the "
+            "whole control and the covariance 1/x_c - 1/n_c with the other comparisons of its test (generalised "
+            "least squares with a block-diagonal within-test covariance), so the control is neither counted twice "
+            "nor split.",
             "Win rates count verdicts of the per-test analysis (its ship rule); the false positive risk uses that "
             f"rule's false-win rate per comparison at two-sided alpha {alpha:g} (Holm within each test) and assumes "
             f"power {assumed_power:.0%} at the true effects (an assumption, not a measurement).",
@@ -283,6 +288,36 @@ def pool(
     )
 
 
+def whole_variance(e: Effect) -> float:
+    """The comparison's sampling variance against its whole control."""
+    return e.variance if e.sampling_variance is None else e.sampling_variance
+
+
+def pooling_inputs(effects: list[Effect]) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Log risk ratios, their variances against the whole control, a cluster number per test (per test and segment
+    for segment effects) and the covariance shared with the other comparisons of that cluster."""
+    numbers: dict[tuple[str, str | None], int] = {}
+    clusters = [numbers.setdefault((e.record_id, e.segment), len(numbers)) for e in effects]
+    return (
+        np.array([e.log_rr for e in effects], dtype=float),
+        np.array([whole_variance(e) for e in effects], dtype=float),
+        np.array(clusters, dtype=np.int64),
+        np.array([e.shared_variance for e in effects], dtype=float),
+    )
+
+
+def _w_times(x: np.ndarray, own: np.ndarray, c: np.ndarray, cluster: np.ndarray, tau2: float) -> np.ndarray:
+    """(V + tau^2 I)^-1 x for one group, V block-diagonal by cluster (own variances plus c 11'), by
+    Sherman-Morrison per cluster."""
+    u = 1 / (own + tau2)
+    size = np.bincount(cluster)
+    c = np.where(size[cluster] > 1, c, 0.0)
+    c_of = np.zeros(len(size))
+    c_of[cluster] = c
+    f = c_of / (1 + c_of * np.bincount(cluster, weights=u, minlength=len(size)))
+    return u * x - u * f[cluster] * np.bincount(cluster, weights=u * x, minlength=len(size))[cluster]
+
+
 def _value(array: np.ndarray, i: int) -> float | None:
     value = float(array[i])
     return value if math.isfinite(value) else None
@@ -292,21 +327,24 @@ def _group(key: str, items: list[Effect], re: GroupPooling, dl: GroupPooling, i:
     """One group's result from the vectorised pooling of all groups (row ``i``)."""
     tau2 = float(re.tau2[i])
     mean = float(re.mean[i])
-    v = np.array([e.variance for e in items])
-    se_plain = math.sqrt(1 / float(np.sum(1 / (v + tau2))))
+    y, v, cluster, c = pooling_inputs(items)
+    cluster = np.unique(cluster, return_inverse=True)[1]
+    own = np.where(np.bincount(cluster)[cluster] > 1, v - c, v)
+    se_plain = math.sqrt(1 / float(np.sum(_w_times(np.ones_like(y), own, c, cluster, tau2))))
+    # empirical-Bayes posterior means (best linear unbiased predictions): mean + tau^2 (V + tau^2 I)^-1 (y - mean)
+    posterior = mean + tau2 * _w_times(y - mean, own, c, cluster, tau2)
     z = float(special.ndtri(0.975))
     members = []
-    for e in items:
-        weight = 0.0 if tau2 == 0 else (1 / e.variance) / (1 / e.variance + 1 / tau2)
-        posterior = weight * e.log_rr + (1 - weight) * mean
+    for e, variance, shrunk in zip(items, v, posterior, strict=True):
+        se = math.sqrt(variance)
         members.append(
             Member(
                 e.record_id,
                 e.arm,
                 e.lift,
-                math.exp(e.log_rr - z * e.se) - 1,
-                math.exp(e.log_rr + z * e.se) - 1,
-                math.exp(posterior) - 1,
+                math.exp(e.log_rr - z * se) - 1,
+                math.exp(e.log_rr + z * se) - 1,
+                math.exp(float(shrunk)) - 1,
                 e.verdict,
                 e.shipped,
             )
@@ -458,10 +496,10 @@ def _between(used: list[Effect], primary: list[int], names: list[str], method: s
     keep = [i for i, g in enumerate(primary) if g >= 0]
     if not keep:
         return None
-    y = np.array([used[i].log_rr for i in keep])
-    v = np.array([used[i].variance for i in keep])
+    y, v, clusters, shared = pooling_inputs([used[i] for i in keep])
     index = np.array([primary[i] for i in keep])
-    once = pool_groups(y, v, index, len(names), method, hksj=False, prediction=False)  # type: ignore[arg-type]
+    tau_method = cast(TauMethod, method)
+    once = pool_groups(y, v, index, len(names), tau_method, False, prediction=False, clusters=clusters, shared=shared)
     usable = np.flatnonzero(once.k >= 2)
     if len(usable) < 2:
         return None

@@ -165,7 +165,7 @@ def build_pool_memo(p: PoolResult) -> Memo:
     if p.double_zero:
         checks.append(f"Left out, no conversions in either arm: {', '.join(p.double_zero)}.")
     if p.split_controls:
-        checks.append(f"Shared controls split evenly: {', '.join(p.split_controls)}.")
+        checks.append(f"Comparisons sharing a control, pooled with their covariance: {', '.join(p.split_controls)}.")
     sections.append(Section("Across the archive", bullets=checks, details=True))
     sections.append(
         Section("Conventions and assumptions", bullets=[p.interval, p.prediction_convention, *p.assumptions])

@@ -40,6 +40,67 @@ def _arrays(effects: ArrayLike, variances: ArrayLike) -> tuple[np.ndarray, np.nd
     return y, v
 
 
+def _covariance(
+    v: np.ndarray, clusters: Sequence[int] | np.ndarray | None, shared: ArrayLike | None
+) -> np.ndarray:
+    """The variances as they are (independent estimates), or the within-study covariance matrix when estimates of
+    one cluster share a covariance (e.g. comparisons of one test against its shared control)."""
+    if clusters is None and shared is None:
+        return v
+    if clusters is None or shared is None:
+        raise ValueError("clusters and shared go together")
+    cl, c = np.asarray(clusters), np.asarray(shared, dtype=float)
+    if cl.shape != v.shape or c.shape != v.shape:
+        raise ValueError("clusters and shared must have one entry per effect")
+    if not np.issubdtype(cl.dtype, np.integer):
+        raise ValueError("clusters must hold integers")
+    if np.any(~np.isfinite(c)) or np.any(c < 0) or np.any(c >= v):
+        raise ValueError("shared covariances must be finite, >= 0 and below the effect's variance")
+    same = cl[:, None] == cl[None, :]
+    if np.any(same & (c[:, None] != c[None, :])):
+        raise ValueError("shared must be equal for every effect of a cluster")
+    if np.count_nonzero(same) == len(v):
+        return v  # no cluster holds two estimates
+    cov = np.where(same, c[:, None], 0.0)
+    np.fill_diagonal(cov, v)
+    return cov
+
+
+@dataclass(frozen=True)
+class _Fit:
+    """Generalised least squares at one tau^2: W = (V + tau^2 I)^-1, V the variances (diagonal) or a covariance."""
+
+    w1: np.ndarray  # W 1
+    sw: float  # 1'W1
+    mean: float
+    r: np.ndarray  # y - mean
+    e: np.ndarray  # W r
+    q: float  # r'W r
+    trace_w: float
+    log_det: float  # log det(V + tau^2 I)
+
+
+def _fit(tau2: float, y: np.ndarray, v: np.ndarray) -> _Fit:
+    if v.ndim == 1:
+        w = 1 / (v + tau2)
+        sw = float(np.sum(w))
+        mean = float(np.sum(w * y) / sw)
+        r = y - mean
+        return _Fit(w, sw, mean, r, w * r, float(np.sum(w * r * r)), sw, float(np.sum(np.log(v + tau2))))
+    m = v + tau2 * np.eye(len(y))
+    w_mat = np.linalg.inv(m)
+    w1 = w_mat.sum(axis=1)
+    sw = float(np.sum(w1))
+    mean = float(w1 @ y / sw)
+    r = y - mean
+    e = w_mat @ r
+    return _Fit(w1, sw, mean, r, e, float(r @ e), float(np.trace(w_mat)), float(np.linalg.slogdet(m)[1]))
+
+
+def _variances(v: np.ndarray) -> np.ndarray:
+    return v if v.ndim == 1 else np.diag(v)
+
+
 @dataclass(frozen=True)
 class Heterogeneity:
     k: int
@@ -51,20 +112,31 @@ class Heterogeneity:
     i_squared: float  # fraction, 0..1
 
 
-def heterogeneity(effects: ArrayLike, variances: ArrayLike) -> Heterogeneity:
-    """Fixed-effect mean and Cochran's Q with I^2 = max(0, (Q - df) / Q)."""
+def heterogeneity(
+    effects: ArrayLike,
+    variances: ArrayLike,
+    clusters: Sequence[int] | np.ndarray | None = None,
+    shared: ArrayLike | None = None,
+) -> Heterogeneity:
+    """Fixed-effect mean and Cochran's Q with I^2 = max(0, (Q - df) / Q); with ``clusters`` and ``shared`` (see
+    :func:`random_effects`) the generalised least squares mean and Q = r' V^-1 r with the within-study covariance."""
     y, v = _arrays(effects, variances)
-    w = 1 / v
-    mean = float(np.sum(w * y) / np.sum(w))
-    q = float(np.sum(w * (y - mean) ** 2))
+    fit = _fit(0.0, y, _covariance(v, clusters, shared))
+    mean, q = fit.mean, fit.q
     df = len(y) - 1
     p = float(special.chdtrc(df, q)) if df > 0 else None
     # df = 0 (one estimate): Q is 0 up to rounding, and (Q - 0) / Q would give 100%
     i2 = max(0.0, (q - df) / q) if q > 0 and df > 0 else 0.0
-    return Heterogeneity(len(y), mean, float(math.sqrt(1 / np.sum(w))), q, df, p, i2)
+    return Heterogeneity(len(y), mean, float(math.sqrt(1 / fit.sw)), q, df, p, i2)
 
 
 def tau2_dl(y: np.ndarray, v: np.ndarray) -> float:
+    """DerSimonian-Laird (1986), truncated at 0. With a covariance matrix v: the same moment estimator for the
+    generalised Q, E[Q] = k - 1 + tau^2 tr(P0), tr(P0) = tr(V^-1) - 1'V^-2 1 / 1'V^-1 1."""
+    if v.ndim == 2:
+        fit = _fit(0.0, y, v)
+        scale = fit.trace_w - float(fit.w1 @ fit.w1) / fit.sw
+        return float(max(0.0, (fit.q - (len(y) - 1)) / scale)) if scale > 0 else 0.0
     w = 1 / v
     mean = np.sum(w * y) / np.sum(w)
     q = np.sum(w * (y - mean) ** 2)
@@ -73,6 +145,8 @@ def tau2_dl(y: np.ndarray, v: np.ndarray) -> float:
 
 
 def _generalised_q(tau2: float, y: np.ndarray, v: np.ndarray) -> float:
+    if v.ndim == 2:
+        return _fit(tau2, y, v).q
     w = 1 / (v + tau2)
     mean = np.sum(w * y) / np.sum(w)
     return float(np.sum(w * (y - mean) ** 2))
@@ -90,7 +164,11 @@ def tau2_pm(y: np.ndarray, v: np.ndarray) -> float:
 
 
 def _reml_score(tau2: float, y: np.ndarray, v: np.ndarray) -> float:
-    """Twice the tau^2-derivative of the restricted log-likelihood: sum w^2 (y - mu)^2 - (sum w - sum w^2 / sum w)."""
+    """Twice the tau^2-derivative of the restricted log-likelihood: sum w^2 (y - mu)^2 - (sum w - sum w^2 / sum w);
+    with a covariance matrix r'WWr - (tr W - 1'WW1 / 1'W1), W = (V + tau^2 I)^-1."""
+    if v.ndim == 2:
+        fit = _fit(tau2, y, v)
+        return float(fit.e @ fit.e - (fit.trace_w - fit.w1 @ fit.w1 / fit.sw))
     w = 1 / (v + tau2)
     sw = np.sum(w)
     mean = np.sum(w * y) / sw
@@ -98,6 +176,9 @@ def _reml_score(tau2: float, y: np.ndarray, v: np.ndarray) -> float:
 
 
 def _negative_restricted_loglik(tau2: float, y: np.ndarray, v: np.ndarray) -> float:
+    if v.ndim == 2:
+        fit = _fit(tau2, y, v)
+        return 0.5 * (fit.log_det + math.log(fit.sw) + fit.q)
     w = 1 / (v + tau2)
     mean = np.sum(w * y) / np.sum(w)
     return float(0.5 * (np.sum(np.log(v + tau2)) + np.log(np.sum(w)) + np.sum(w * (y - mean) ** 2)))
@@ -105,6 +186,8 @@ def _negative_restricted_loglik(tau2: float, y: np.ndarray, v: np.ndarray) -> fl
 
 def _reml_scores(grid: np.ndarray, y: np.ndarray, v: np.ndarray) -> np.ndarray:
     """_reml_score at every tau^2 of a grid at once (rows: grid points)."""
+    if v.ndim == 2:
+        return np.array([_reml_score(float(t), y, v) for t in grid])
     w = 1 / (v[None, :] + grid[:, None])
     sw = np.sum(w, axis=1)
     mean = np.sum(w * y, axis=1) / sw
@@ -140,7 +223,7 @@ def tau2_reml(y: np.ndarray, v: np.ndarray) -> float:
     """
     if len(y) < 2:
         return 0.0
-    grid = np.concatenate([[0.0], reml_grid(np.min(v), np.max(v), np.var(y))])
+    grid = np.concatenate([[0.0], reml_grid(np.min(_variances(v)), np.max(_variances(v)), np.var(y))])
     score = _reml_scores(grid, y, v)
     best, best_nll = 0.0, math.inf
     if score[0] <= 0:
@@ -189,18 +272,27 @@ def random_effects(
     confidence: float = 0.95,
     hksj_floor: bool = True,
     prediction: bool = True,
+    clusters: Sequence[int] | np.ndarray | None = None,
+    shared: ArrayLike | None = None,
 ) -> RandomEffects:
+    """Random-effects meta-analysis. Estimates are independent unless ``clusters`` (integers) and ``shared`` (the
+    covariance of two estimates of one cluster, equal within it) say otherwise: e.g. comparisons of one test against
+    its shared control, cov(log RR_1, log RR_2) = 1/x_c - 1/n_c. Then V, the within-study covariance, is
+    block-diagonal and every estimator uses W = (V + tau^2 I)^-1 (generalised least squares; the generalised Q
+    r'Wr still follows chi-square with k - 1 df at the true tau^2, so the Q-profile interval and the prediction
+    interval carry over unchanged)."""
     y, v = _arrays(effects, variances)
     if method not in TAU2:
         raise ValueError(f"unknown tau^2 method {method!r}; use DL, PM or REML")
+    cov = _covariance(v, clusters, shared)
     k = len(y)
-    tau2 = TAU2[method](y, v)
-    w = 1 / (v + tau2)
-    mean = float(np.sum(w * y) / np.sum(w))
-    se = float(math.sqrt(1 / np.sum(w)))
+    tau2 = TAU2[method](y, cov)
+    fit = _fit(tau2, y, cov)
+    mean = fit.mean
+    se = float(math.sqrt(1 / fit.sw))
     tail = 0.5 + confidence / 2
     if hksj and k >= 2:
-        q_hk = float(np.sum(w * (y - mean) ** 2) / (k - 1))
+        q_hk = fit.q / (k - 1)
         if hksj_floor:
             q_hk = max(1.0, q_hk)
         se_used = se * math.sqrt(q_hk)
@@ -210,14 +302,14 @@ def random_effects(
     else:
         se_used, crit, kind = se, float(special.ndtri(tail)), "normal"
         p = float(2 * special.ndtr(-abs(mean / se)))
-    het = heterogeneity(y, v)
+    het = heterogeneity(y, v, clusters, shared)
     pred_low = pred_high = hts_low = hts_high = None
     if k >= 3:
         half = float(special.stdtrit(k - 2, tail)) * math.sqrt(tau2 + se**2)
         hts_low, hts_high = mean - half, mean + half
-        interval = cd_prediction_interval(y, v, confidence) if prediction else None
+        interval = cd_prediction_interval(y, v, confidence, clusters=clusters, shared=shared) if prediction else None
         pred_low, pred_high = interval if interval is not None else (None, None)
-    t_low, t_high = tau2_q_profile(y, v, confidence) if k >= 2 else (None, None)
+    t_low, t_high = tau2_q_profile(y, cov, confidence) if k >= 2 else (None, None)
     return RandomEffects(
         k,
         method,
@@ -250,6 +342,12 @@ def _tau2_at_q(y: np.ndarray, v: np.ndarray, targets: np.ndarray) -> np.ndarray:
     hi = max(1.0, float(np.var(y)) * 10)
     while _generalised_q(hi, y, v) > float(np.min(targets)):
         hi *= 10
+    if v.ndim == 2:
+        roots = np.zeros(len(targets))
+        for i, t in enumerate(targets):
+            if q0 > t:
+                roots[i] = _brentq(lambda x, t=t: _generalised_q(x, y, v) - t, 0.0, hi, xtol=1e-14)
+        return roots
     lo_t, hi_t = np.zeros(len(targets)), np.full(len(targets), hi)
     for _ in range(100):
         mid = 0.5 * (lo_t + hi_t)
@@ -261,7 +359,12 @@ def _tau2_at_q(y: np.ndarray, v: np.ndarray, targets: np.ndarray) -> np.ndarray:
 
 
 def cd_prediction_interval(
-    effects: ArrayLike, variances: ArrayLike, confidence: float = 0.95, points: int = PREDICTION_POINTS
+    effects: ArrayLike,
+    variances: ArrayLike,
+    confidence: float = 0.95,
+    points: int = PREDICTION_POINTS,
+    clusters: Sequence[int] | np.ndarray | None = None,
+    shared: ArrayLike | None = None,
 ) -> tuple[float, float] | None:
     """Prediction interval of a new study's true effect carrying tau^2's uncertainty; None for k < 3.
 
@@ -269,16 +372,22 @@ def cd_prediction_interval(
     Nagashima, Noma & Furukawa 2019): tau^2(u) solves generalised Q(tau^2) = chi2_{k-1} quantile u. Given tau^2, a
     new true effect is Normal(mu(tau^2), tau^2 + 1 / sum w(tau^2)); the interval is the equal-tailed quantiles of
     that normal mixture over the midpoints of ``points`` equal slices of u. Seeded simulations in the tests show
-    its coverage for k = 3 to 30."""
+    its coverage for k = 3 to 30. ``clusters`` and ``shared``: correlated estimates, as in :func:`random_effects`."""
     y, v = _arrays(effects, variances)
+    v = _covariance(v, clusters, shared)
     k = len(y)
     if k < 3:
         return None
     u = (np.arange(points) + 0.5) / points
     tau2 = _tau2_at_q(y, v, np.asarray(special.chdtri(k - 1, 1 - (u))))
-    w = 1 / (v[None, :] + tau2[:, None])
-    centres = np.sum(w * y, axis=1) / np.sum(w, axis=1)
-    scales = np.sqrt(tau2 + 1 / np.sum(w, axis=1))
+    if v.ndim == 2:
+        fits = [_fit(float(t), y, v) for t in tau2]
+        centres = np.array([f.mean for f in fits])
+        scales = np.sqrt(tau2 + 1 / np.array([f.sw for f in fits]))
+    else:
+        w = 1 / (v[None, :] + tau2[:, None])
+        centres = np.sum(w * y, axis=1) / np.sum(w, axis=1)
+        scales = np.sqrt(tau2 + 1 / np.sum(w, axis=1))
 
     def cdf(x: float) -> float:
         return float(np.mean(special.ndtr((x - centres) / scales)))

@@ -6,6 +6,10 @@ estimates are sorted by group once, every sum over a group is an ``np.add.reduce
 bracket, with bisection when a step would leave it.
 
 An estimate may belong to several groups: the caller repeats it, once per group, with the matching group index.
+
+Estimates of one cluster (the comparisons of a test against its shared control) may be correlated with a known
+covariance: V + tau^2 I is then block-diagonal, each block a diagonal plus c 11', and every product with its inverse
+is a sum over estimates with one correction per block (Sherman-Morrison), so the pass stays vectorised.
 """
 
 from __future__ import annotations
@@ -144,48 +148,136 @@ def _bracketed_newton(
     return x
 
 
+class _Blocks:
+    """Estimates of one group and cluster (e.g. the comparisons of one test against its shared control), contiguous
+    in the sorted order: every estimate is in a block (most of size 1), ``c`` the covariance of any two estimates of
+    a block (0 for blocks of one)."""
+
+    def __init__(self, starts: np.ndarray, c: np.ndarray, group: np.ndarray, n_estimates: int, n: int) -> None:
+        self.starts, self.c, self.group, self.n = starts, c, group, n
+        sizes = np.diff(np.append(starts, n_estimates))
+        self.of = np.repeat(np.arange(len(starts)), sizes)  # block of every estimate
+
+    def sum(self, x: np.ndarray) -> np.ndarray:
+        """Per block: the sum of x over its estimates (bincount: several times faster than reduceat over many
+        short runs)."""
+        return np.bincount(self.of, weights=x, minlength=len(self.starts))
+
+    def spread(self, per_block: np.ndarray) -> np.ndarray:
+        return per_block[self.of]
+
+    def to_groups(self, per_block: np.ndarray) -> np.ndarray:
+        return np.bincount(self.group, weights=per_block, minlength=self.n)
+
+
+_EMPTY = np.zeros(0)
+
+
+@dataclass(frozen=True)
+class _State:
+    """The model at one tau^2 per group: W = (V + tau^2 I)^-1 with V block-diagonal (a diagonal of own variances
+    plus c 11' per block), by Sherman-Morrison: W = D - f u u' per block, D = diag(u), u = 1 / (own + tau^2),
+    f = c / (1 + c sum u)."""
+
+    u: np.ndarray  # per estimate
+    f: np.ndarray  # per block
+    w1: np.ndarray  # W 1 per estimate
+    sw: np.ndarray  # 1' W 1 per group
+    mean: np.ndarray  # generalised least squares mean per group
+    r: np.ndarray  # y - mean
+    e: np.ndarray  # W r
+
+
 class _Model:
-    """Generalised Q and the REML score of every group, at one tau^2 per group."""
+    """Generalised Q and the REML score of every group, at one tau^2 per group.
 
-    def __init__(self, groups: _Groups, y: np.ndarray, v: np.ndarray) -> None:
-        self.groups, self.y, self.v = groups, y, v
+    Estimates are independent unless ``blocks`` says otherwise: estimates of one block (comparisons of one test
+    against its shared control) have covariance c, so V + tau^2 I is block-diagonal and every product with its
+    inverse is a sum over estimates plus a correction per block."""
 
-    def _weights(self, tau2: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        s = self.groups
-        w = 1 / (self.v + s.spread(tau2))
-        sw = s.sum(w)
-        mean = s.sum(w * self.y) / sw
-        return w, sw, self.y - s.spread(mean)
+    def __init__(self, groups: _Groups, y: np.ndarray, v: np.ndarray, blocks: _Blocks | None = None) -> None:
+        self.groups, self.y, self.v, self.blocks = groups, y, v, blocks
+        self.own = v
+        if blocks is not None:
+            self.own = v - blocks.spread(blocks.c)
+
+    def apply(self, state_u: np.ndarray, f: np.ndarray, x: np.ndarray) -> np.ndarray:
+        """W x for a vector x over the estimates."""
+        out = state_u * x
+        b = self.blocks
+        if b is not None:
+            out -= state_u * b.spread(f * b.sum(out))
+        return out
+
+    def state(self, tau2: np.ndarray, residuals: bool = True) -> _State:
+        """W 1, 1'W1 and the mean at tau2; with ``residuals`` also r and W r (else empty). Per block
+        W 1 = u / (1 + c sum u) and W r = u (r - f sum u r)."""
+        s, b = self.groups, self.blocks
+        u = 1 / (self.own + s.spread(tau2))
+        f = _EMPTY
+        w1 = u
+        if b is not None:
+            cs = b.c * b.sum(u)
+            f = b.c / (1 + cs)
+            w1 = u * b.spread(1 / (1 + cs))
+        sw = s.sum(w1)
+        mean = s.sum(w1 * self.y) / sw
+        if not residuals:
+            return _State(u, f, w1, sw, mean, _EMPTY, _EMPTY)
+        r = self.y - s.spread(mean)
+        return _State(u, f, w1, sw, mean, r, self.apply(u, f, r))
+
+    def trace_w(self, st: _State) -> np.ndarray:
+        """tr W = sum u - sum over blocks of f sum u^2 (= 1'W1 for independent estimates)."""
+        b = self.blocks
+        if b is None:
+            return st.sw
+        return self.groups.sum(st.u) - b.to_groups(st.f * b.sum(st.u**2))
+
+    def q_at(self, tau2: np.ndarray) -> tuple[_State, np.ndarray]:
+        st = self.state(tau2)
+        return st, self.groups.sum(st.r * st.e)
 
     def generalised_q(self, tau2: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """Q(tau2) = sum w (y - mu)^2 and dQ/dtau2 = -sum w^2 (y - mu)^2 (mu minimises Q, so its change drops out)."""
-        w, _, r = self._weights(tau2)
-        wr2 = w * r * r
-        return self.groups.sum(wr2), -self.groups.sum(w * wr2)
-
-    def _reml_parts(self, tau2: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """Q(tau2) = r'W r, r = y - mu, and dQ/dtau2 = -r'W W r (mu minimises Q, so its change drops out)."""
+        st = self.state(tau2)
         s = self.groups
-        w, sw, r = self._weights(tau2)
-        e = w * r  # P y
-        sw2 = s.sum(w * w)
-        return s.sum(e * e) - (sw - sw2 / sw), w, e, sw, sw2
+        return s.sum(st.r * st.e), -s.sum(st.e * st.e)
+
+    def _reml_parts(self, tau2: np.ndarray) -> tuple[np.ndarray, _State]:
+        st = self.state(tau2)
+        s = self.groups
+        return s.sum(st.e * st.e) - (self.trace_w(st) - s.sum(st.w1 * st.w1) / st.sw), st
 
     def reml_score(self, tau2: np.ndarray) -> np.ndarray:
-        """Twice the restricted score: y'PPy - tr(P) = sum w^2 (y - mu)^2 - (sum w - sum w^2 / sum w)."""
+        """Twice the restricted score: y'PPy - tr(P), P = W - W11'W / 1'W1, so P y = W r and
+        tr P = tr W - (W1)'(W1) / 1'W1 (independent estimates: sum w^2 (y - mu)^2 - (sum w - sum w^2 / sum w))."""
         return self._reml_parts(tau2)[0]
 
     def reml_score_and_slope(self, tau2: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """Twice the restricted score and its derivative in tau^2, -2 y'PPPy + tr(PP) (as dP/dtau^2 = -PP)."""
-        s = self.groups
-        score, w, e, sw, sw2 = self._reml_parts(tau2)
-        e_p_e = s.sum(w * e * e) - s.sum(w * e) ** 2 / sw
-        tr_pp = sw2 - 2 * s.sum(w * w * w) / sw + (sw2 / sw) ** 2
+        """Twice the restricted score and its derivative in tau^2, -2 y'PPPy + tr(PP) (as dP/dtau^2 = -PP), with
+        y'PPPy = e'We - (1'We)^2 / 1'W1 (e = Py) and tr(PP) = tr(WW) - 2 (W1)'W(W1) / 1'W1 + ((W1)'(W1) / 1'W1)^2."""
+        s, b = self.groups, self.blocks
+        score, st = self._reml_parts(tau2)
+        we = self.apply(st.u, st.f, st.e)
+        ww1 = self.apply(st.u, st.f, st.w1)
+        e_p_e = s.sum(st.e * we) - s.sum(st.w1 * st.e) ** 2 / st.sw
+        tr_ww = s.sum(st.u * st.u)
+        if b is not None:
+            u2, u3 = b.sum(st.u**2), b.sum(st.u**3)
+            tr_ww -= b.to_groups(2 * st.f * u3 - st.f**2 * u2**2)
+        sw2 = s.sum(st.w1 * st.w1)
+        tr_pp = tr_ww - 2 * s.sum(st.w1 * ww1) / st.sw + (sw2 / st.sw) ** 2
         return score, -2 * e_p_e + tr_pp
 
     def negative_restricted_loglik(self, tau2: np.ndarray) -> np.ndarray:
-        w, sw, r = self._weights(tau2)
-        s = self.groups
-        return 0.5 * (s.sum(np.log(self.v + s.spread(tau2))) + np.log(sw) + s.sum(w * r * r))
+        """0.5 (log det(V + tau^2 I) + log 1'W1 + r'Wr); per block log det = sum log(own + tau^2) + log(1 + c sum u)."""
+        st = self.state(tau2)
+        s, b = self.groups, self.blocks
+        log_det = s.sum(np.log(self.own + s.spread(tau2)))
+        if b is not None:
+            log_det += b.to_groups(np.log1p(b.c * b.sum(st.u)))
+        return 0.5 * (log_det + np.log(st.sw) + s.sum(st.r * st.e))
 
 
 def _solve_q(
@@ -269,18 +361,59 @@ def pool_groups(
     confidence: float = 0.95,
     hksj_floor: bool = True,
     prediction: bool = True,
+    clusters: Sequence[int] | np.ndarray | None = None,
+    shared: ArrayLike | None = None,
 ) -> GroupPooling:
     """Random-effects pooling of every group: ``effects[i]`` (variance ``variances[i]``) belongs to group
     ``group_index[i]`` in 0 .. n_groups - 1. Group by group the result equals
-    ``random_effects(effects[group_index == j], variances[group_index == j], method, hksj, confidence, hksj_floor)``,
-    with None there as NaN here."""
+    ``random_effects(effects[group_index == j], variances[group_index == j], method, hksj, confidence, hksj_floor,
+    clusters=clusters[group_index == j], shared=shared[group_index == j])``, with None there as NaN here.
+
+    ``clusters`` (integers) and ``shared`` (covariances) mark estimates that are correlated: two estimates of one
+    group in the same cluster have covariance ``shared`` (equal within a cluster, 0 <= shared < variance), e.g. the
+    comparisons of one test against its shared control. Without them the estimates are independent."""
     y, v, g, n = _validate(effects, variances, group_index, n_groups)
+    cl, c = _validate_clusters(clusters, shared, v)
     if method not in ("DL", "PM", "REML"):
         raise ValueError(f"unknown tau^2 method {method!r}; use DL, PM or REML")
     if not 0 < confidence < 1:
         raise ValueError("confidence must lie strictly between 0 and 1")
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        return _pool(y, v, g, n, method, hksj, confidence, hksj_floor, prediction)
+        return _pool(y, v, g, n, method, hksj, confidence, hksj_floor, prediction, cl, c)
+
+
+def _validate_clusters(
+    clusters: Sequence[int] | np.ndarray | None, shared: ArrayLike | None, v: np.ndarray
+) -> tuple[np.ndarray | None, np.ndarray | None]:
+    if clusters is None and shared is None:
+        return None, None
+    if clusters is None or shared is None:
+        raise ValueError("clusters and shared go together")
+    cl, c = np.asarray(clusters), np.asarray(shared, dtype=float)
+    if cl.shape != v.shape or c.shape != v.shape:
+        raise ValueError("clusters and shared must have one entry per effect")
+    if cl.size and not np.issubdtype(cl.dtype, np.integer):
+        raise ValueError("clusters must hold integers")
+    if np.any(~np.isfinite(c)) or np.any(c < 0) or np.any(c >= v):
+        raise ValueError("shared covariances must be finite, >= 0 and below the effect's variance")
+    return cl.astype(np.int64), c
+
+
+def _blocks(g: np.ndarray, cl: np.ndarray, c: np.ndarray, n: int) -> _Blocks | None:
+    """The blocks of estimates of one group and cluster (estimates sorted by group, then cluster); None when no
+    block holds two estimates."""
+    if len(g) < 2:
+        return None
+    new = np.concatenate([[True], (g[1:] != g[:-1]) | (cl[1:] != cl[:-1])])
+    starts = np.nonzero(new)[0]
+    sizes = np.diff(np.append(starts, len(g)))
+    if not bool((sizes >= 2).any()):
+        return None
+    block_c = np.where(sizes >= 2, c[starts], 0.0)
+    blocks = _Blocks(starts, block_c, g[starts], len(g), n)
+    if np.any(np.where(sizes[blocks.of] >= 2, c != blocks.spread(block_c), False)):
+        raise ValueError("shared must be equal for every effect of a cluster within a group")
+    return blocks
 
 
 def _pool(
@@ -293,24 +426,31 @@ def _pool(
     confidence: float,
     floor: bool,
     prediction: bool = True,
+    cl: np.ndarray | None = None,
+    c: np.ndarray | None = None,
 ) -> GroupPooling:
-    if len(g) > 1 and not bool(np.all(g[1:] >= g[:-1])):
+    blocks = None
+    if cl is not None and c is not None:
+        if len(g) > 1:
+            order = np.lexsort((cl, g))
+            y, v, g, cl, c = y[order], v[order], g[order], cl[order], c[order]
+        blocks = _blocks(g, cl, c, n)
+    elif len(g) > 1 and not bool(np.all(g[1:] >= g[:-1])):
         # a stable sort of small integers is a radix sort in numpy: several times faster than on int64
         order = np.argsort(g.astype(np.uint16) if n <= 1 << 16 else g, kind="stable")
         y, v, g = y[order], v[order], g[order]
     s = _Groups(g, n)
-    model = _Model(s, y, v)
+    model = _Model(s, y, v, blocks)
     k = s.k.astype(int)
     some, multi = k >= 1, k >= 2
     df = np.where(some, k - 1, np.nan).astype(float)
     nan = np.full(n, np.nan)
 
-    # fixed effect and Cochran's Q
-    w0 = 1 / v
-    sw0 = s.sum(w0)
-    fixed_mean = s.sum(w0 * y) / sw0
+    # fixed effect and Cochran's Q (generalised least squares with the within-study covariance)
+    zero, q = model.q_at(np.zeros(n))
+    sw0 = zero.sw
+    fixed_mean = zero.mean
     fixed_se = np.sqrt(1 / sw0)
-    q = s.sum(w0 * (y - s.spread(fixed_mean)) ** 2)
     q_p_value = nan.copy()
     q_p_value[multi] = special.chdtrc(df[multi], q[multi])
     # I^2 = max(0, (Q - df) / Q); 0 when Q = 0 or df = 0 (one estimate: Q is 0 up to rounding)
@@ -324,8 +464,10 @@ def _pool(
     atol = np.where(some, 1e-15 * v_min, 0.0)  # below the rounding noise of a root near 0
 
     if method == "DL":
-        c = sw0 - s.sum(w0 * w0) / sw0
-        tau2 = np.where(multi & (c > 0), np.maximum(0.0, (q - df) / c), 0.0)
+        # moment estimator: E[Q] = k - 1 + tau^2 tr(P0), tr(P0) = tr W0 - (W0 1)'(W0 1) / 1'W0 1 (with independent
+        # estimates sum w - sum w^2 / sum w, DerSimonian & Laird 1986)
+        scale = model.trace_w(zero) - s.sum(zero.w1 * zero.w1) / sw0
+        tau2 = np.where(multi & (scale > 0), np.maximum(0.0, (q - df) / scale), 0.0)
     elif method == "PM":
         tau2 = _solve_q(model, np.where(multi, df, 1.0), q, multi, k_var_y, atol)
     else:
@@ -333,14 +475,13 @@ def _pool(
     tau2 = np.where(some, tau2, 0.0)
 
     # random-effects mean; HKSJ: se * sqrt(q_hk), q_hk = sum w (y - mu)^2 / (k - 1) (floored at 1 by default), t, k-1 df
-    w = 1 / (v + s.spread(tau2))
-    sw = s.sum(w)
-    mean = s.sum(w * y) / sw
-    se_plain = np.sqrt(1 / sw)
+    fitted, q_tau = model.q_at(tau2)
+    mean = fitted.mean
+    se_plain = np.sqrt(1 / fitted.sw)
     tail = 0.5 + confidence / 2
     use_t = multi if hksj else np.zeros(n, dtype=bool)
     use_z = some & ~use_t
-    q_hk = s.sum(w * (y - s.spread(mean)) ** 2) / df
+    q_hk = q_tau / df
     if floor:
         q_hk = np.maximum(1.0, q_hk)  # Knapp-Hartung modification: never narrower than the plain interval
     se = np.where(use_t, se_plain * np.sqrt(q_hk), se_plain)
@@ -416,7 +557,6 @@ def _cd_prediction(
     confidence distribution by the bracketed Newton solver (slices in order of growing tau^2, each started from
     the last root), the mixture quantiles by Newton steps kept inside a shrinking bracket."""
     n = len(df)
-    s = model.groups
     u = (np.arange(PREDICTION_POINTS) + 0.5) / PREDICTION_POINTS
     centres = np.zeros((n, PREDICTION_POINTS))
     scales = np.ones((n, PREDICTION_POINTS))
@@ -427,10 +567,9 @@ def _cd_prediction(
     for j in range(PREDICTION_POINTS - 1, -1, -1):  # u falling: chi-square target falling, tau^2 growing
         target = _by_distinct(lambda d, p=u[j]: special.chdtri(d, 1 - (p)), dfs)  # type: ignore[misc]
         tau2 = _solve_q(model, target, q0, active, k_var_y, atol, start=tau2)
-        w = 1 / (model.v + s.spread(tau2))
-        sw = s.sum(w)
-        centres[:, j] = s.sum(w * model.y) / sw
-        scales[:, j] = np.sqrt(tau2 + 1 / sw)
+        st = model.state(tau2, residuals=False)
+        centres[:, j] = st.mean
+        scales[:, j] = np.sqrt(tau2 + 1 / st.sw)
     centres = np.where(active[:, None], centres, 0.0)
     scales = np.where(active[:, None] & (scales > 0), scales, 1.0)
     tail = (1 - confidence) / 2

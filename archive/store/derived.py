@@ -21,7 +21,7 @@ if TYPE_CHECKING:
     from archive.records.orders import Orders
 
 #: bump when the analysis code changes what it computes: every record is analysed again at the next sync
-ANALYSIS_CODE_VERSION = "4"
+ANALYSIS_CODE_VERSION = "5"
 
 POOLED_STATUSES = ("finished", "stopped-early")  # tests whose comparisons enter pooling
 
