@@ -267,8 +267,7 @@ def pool(
         double_zero=double_zero,
         win_rates=win_rates,
         assumptions=[
-            "Each comparison is an independent estimate: visitors are independent and each test ran to a fixed "
-            "horizon.",
+            "Tests are independent of each other: visitors are independent and each test ran to a fixed horizon.",
             "Comparisons against one shared control are correlated: each is pooled with its variance against the "
             "whole control and the covariance 1/x_c - 1/n_c with the other comparisons of its test (generalised "
             "least squares with a block-diagonal within-test covariance), so the control is neither counted twice "
