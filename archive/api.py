@@ -23,6 +23,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any, Literal
 
 from archive.analysis.settings import Settings
+from archive.planning.hyperprior import Hyperprior
 
 if TYPE_CHECKING:
     import pandas as pd
@@ -63,7 +64,8 @@ def read_settings(root: Path) -> Settings:
     """The analysis settings of an archive: defaults, overridden by ``archive-settings.yaml`` at its root. Keys: the
     scalar fields of :class:`~archive.analysis.Settings` (e.g. ``srm_alpha: 0.001``, ``confidence: 0.95``), and
     ``rules:`` with fields of :class:`~archive.analysis.verdict.VerdictRules` (e.g. ``ship_on_probability: true``,
-    ``revenue_margin: 0.03``). ``synonyms:`` is read by :func:`read_synonyms`."""
+    ``revenue_margin: 0.03``). ``synonyms:`` is read by :func:`read_synonyms`, ``history_prior:`` by
+    :func:`read_hyperprior`."""
     from archive.analysis.settings import VerdictRules
 
     path = root / SETTINGS_FILE
@@ -77,7 +79,7 @@ def read_settings(root: Path) -> Settings:
         raise ValueError(f"{path}:1: -: not readable YAML ({exc.__class__.__name__})") from None
     if not isinstance(data, dict):
         raise ValueError(f"{path}:1: -: expected a mapping of setting: value")
-    data = {k: v for k, v in data.items() if k != "synonyms"}
+    data = {k: v for k, v in data.items() if k not in ("synonyms", "history_prior")}
     rules = data.pop("rules", None) or {}
     if not isinstance(rules, dict):
         raise ValueError(f"{path}:1: rules: expected a mapping of rule: value")
@@ -112,6 +114,26 @@ def _typed(
             raise ValueError(f"{path}:1: {prefix}{key}: expected {type(default).__name__}, got {value!r}")
         values[key] = value
     return values
+
+
+def read_hyperprior(root: Path) -> Hyperprior:
+    """The history model's hyperprior: defaults, overridden by ``history_prior:`` in ``archive-settings.yaml`` with
+    fields of :class:`~archive.planning.hyperprior.Hyperprior` (e.g. ``between_themes_scale: 0.04``)."""
+    path = root / SETTINGS_FILE
+    if not path.is_file():
+        return Hyperprior()
+    import yaml
+
+    data = yaml.safe_load(path.read_text(encoding="utf-8")) or {}
+    found = (data.get("history_prior") if isinstance(data, dict) else None) or {}
+    if not isinstance(found, dict):
+        raise ValueError(f"{path}:1: history_prior: expected a mapping of setting: value")
+    try:
+        return Hyperprior(**_typed(path, "history_prior.", Hyperprior(), found))
+    except (TypeError, ValueError) as exc:
+        if str(exc).startswith(str(path)):
+            raise
+        raise ValueError(f"{path}:1: history_prior: {exc}") from None
 
 
 def read_synonyms(root: Path) -> dict[str, list[str]]:
@@ -160,6 +182,14 @@ class Archive:
         self.last_sync: SyncReport | None = None
         self._engine: Engine | None = None
         self._synced = False
+        self._hyperprior: Hyperprior | None = None
+
+    @property
+    def hyperprior(self) -> Hyperprior:
+        """The history model's hyperprior (``history_prior:`` in ``archive-settings.yaml``, read on first use)."""
+        if self._hyperprior is None:
+            self._hyperprior = read_hyperprior(self.root)
+        return self._hyperprior
 
     @classmethod
     def open(
@@ -401,7 +431,7 @@ class Archive:
         from archive.planning.priors import informed_lift, prior_for_record
         from archive.stats.proportions import log_risk_ratio
 
-        chosen = prior_for_record(self.effects(), record)
+        chosen = prior_for_record(self.effects(), record, self.hyperprior)
         control = record.control_arm()
         minimum = record.plan.minimum_lift if record.plan else None
         items = []
@@ -468,7 +498,7 @@ class Archive:
         """The predictive prior of a new test's lift for a theme (and page area), and the page area's baseline."""
         from archive.planning.priors import baseline_prior, lift_prior
 
-        result = lift_prior(self.effects(), theme, page_area)
+        result = lift_prior(self.effects(), theme, page_area, self.hyperprior)
         baseline = baseline_prior(self.records(), page_area) if page_area else None
         return PriorResult(result, baseline)
 
@@ -502,7 +532,7 @@ class Archive:
         history = win_rate = None
         if theme:
             effects = self.effects()
-            history = lift_prior(effects, theme, page_area)
+            history = lift_prior(effects, theme, page_area, self.hyperprior)
             groups = {g.key: g for g in pool(effects, "theme", permutations=0).groups}
             if theme in groups:
                 win_rate = groups[theme].wins.shrunk
@@ -513,7 +543,7 @@ class Archive:
         told (comparisons replayed, all comparisons) as the replay goes."""
         from archive.planning.calibration import calibrate
 
-        return calibrate(self.effects(), progress=progress)
+        return calibrate(self.effects(), self.hyperprior, progress)
 
     def build_site(
         self,
@@ -528,4 +558,6 @@ class Archive:
         from archive.site.entries import entries_from_store
 
         entries = entries_from_store(self._ready())
-        return build_site(self.records_dir, out, title, run_mkdocs, progress, entries=entries, **options)
+        return build_site(
+            self.records_dir, out, title, run_mkdocs, progress, entries=entries, hyperprior=self.hyperprior, **options
+        )

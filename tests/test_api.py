@@ -95,6 +95,26 @@ def test_settings_change_reanalyses_every_record(archive_dir: Path) -> None:
     assert len(opted.index().reanalysed) == 76  # a rule change is a settings change
 
 
+def test_history_hyperprior_is_an_archive_setting(archive_dir: Path) -> None:
+    archive = Archive.open(archive_dir)
+    archive.index()
+    default = archive.prior("social-proof").lift
+    # wider between-theme scale: themes are allowed to differ more, so the theme's own tests carry more weight
+    (archive_dir / "archive-settings.yaml").write_text("history_prior:\n  between_themes_scale: 0.08\n")
+    wider = Archive.open(archive_dir)
+    assert len(wider.index().reanalysed) == 0  # the stored analyses do not depend on the history prior
+    changed = wider.prior("social-proof").lift
+    assert changed.weight_on_theme > default.weight_on_theme and "half-normal(0.08)" in changed.hyperprior
+    code, out, _ = run("prior", "--theme", "social-proof", "--records", str(archive_dir / "records"))
+    assert code == 0 and "half-normal(0.08)" in out  # the prior used is stated
+    (archive_dir / "archive-settings.yaml").write_text("history_prior:\n  between_theme_scale: 0.08\n")
+    code, _, err = run("prior", "--theme", "social-proof", "--records", str(archive_dir / "records"))
+    assert code != 0 and "archive-settings.yaml:1: history_prior.between_theme_scale: unknown setting" in err
+    (archive_dir / "archive-settings.yaml").write_text("history_prior:\n  mean_sd: -1\n")
+    with pytest.raises(ValueError, match="history_prior: the hyperprior's scales must be > 0"):
+        Archive.open(archive_dir).prior("social-proof")
+
+
 def test_outdated_store_is_refused_then_rebuilt(archive_dir: Path, own_store: str) -> None:
     records = str(archive_dir / "records")
     assert run("index", "--records", records)[0] == 0

@@ -8,7 +8,8 @@ Konstantopoulos 2011), on the log of (1 + lift):
 * a comparison's true effect theta_i ~ Normal(mu_j, tau^2) around the mean mu_j of its theme j (its first theme);
 * theme means mu_j ~ Normal(M, omega^2) around the archive-wide mean M.
 
-The hyperprior (:class:`Hyperprior`, stated in every prior's label) is weakly informative on the scale of
+The hyperprior (:class:`archive.planning.hyperprior.Hyperprior`, stated with every prior; an archive may set it
+under ``history_prior:`` in ``archive-settings.yaml``) is weakly informative on the scale of
 conversion lifts: M ~ Normal(0, 0.03^2) (the average true lift over all kinds of change lies within about +/-6%),
 omega ~ half-normal(0.02) (kinds of change differ in their average lift by a few percent), tau uniform on
 [0, 0.3]. M and the theme means are integrated out in closed form; tau and omega on a grid (``GRID`` x ``GRID``
@@ -30,6 +31,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import special, stats
 
+from archive.planning.hyperprior import DEFAULT_HYPERPRIOR, Hyperprior
 from archive.pooling.effects import Effect
 from archive.pooling.groups import MIN_GROUP, beta_binomial_fit
 from archive.records.model import Record
@@ -37,26 +39,6 @@ from archive.records.model import Record
 GRID = 48  # grid points for tau and for omega
 
 
-@dataclass(frozen=True)
-class Hyperprior:
-    """The prior on the archive-level quantities of the history model (all on the log-lift scale)."""
-
-    mean_sd: float = 0.03  # M ~ Normal(0, mean_sd^2); common practice: most changes move conversion by a few %
-    between_themes_scale: float = 0.02  # omega ~ half-normal(scale); common practice, as above
-    spread_max: float = 0.3  # tau and omega range over [0, spread_max]; tau uniform there
-
-    def __post_init__(self) -> None:
-        if not (self.mean_sd > 0 and self.between_themes_scale > 0 and self.spread_max > 0):
-            raise ValueError("the hyperprior's scales must be > 0")
-
-    def label(self) -> str:
-        return (
-            f"hyperprior: archive mean log lift ~ Normal(0, {self.mean_sd:g}^2), between-theme sd ~ "
-            f"half-normal({self.between_themes_scale:g}), within-theme sd uniform on [0, {self.spread_max:g}]"
-        )
-
-
-DEFAULT_HYPERPRIOR = Hyperprior()
 
 
 @dataclass(frozen=True)
@@ -363,8 +345,8 @@ def informed_lift(
     )
 
 
-def prior_for_record(effects: list[Effect], record: Record) -> LiftPrior:
-    """The history prior for a test (its first theme, on its page area where history allows), built from the
-    other tests only: the test's own data are the likelihood."""
+def prior_for_record(effects: list[Effect], record: Record, hyper: Hyperprior = DEFAULT_HYPERPRIOR) -> LiftPrior:
+    """The history prior for a test (its first theme), built from the other tests only: the test's own data are
+    the likelihood."""
     others = [e for e in effects if e.record_id != record.id]
-    return lift_prior(others, record.themes[0], record.page_area)
+    return lift_prior(others, record.themes[0], record.page_area, hyper)

@@ -20,6 +20,7 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from archive.planning.hyperprior import DEFAULT_HYPERPRIOR, Hyperprior
 from archive.pooling.effects import Effect
 from archive.pooling.groups import PoolResult, pool
 from archive.records.files import write_replace
@@ -80,14 +81,18 @@ def _quarter_chart(data: pages.SiteData) -> bytes:
     return svg.bar_chart(pages.quarter_counts(data), "tests started per quarter")
 
 
-def generate(entries: list[TestEntry], progress: Callable[[str], None] | None = None) -> dict[str, bytes]:
-    """Every generated file (path under docs/ -> bytes)."""
+def generate(
+    entries: list[TestEntry],
+    progress: Callable[[str], None] | None = None,
+    hyperprior: Hyperprior = DEFAULT_HYPERPRIOR,
+) -> dict[str, bytes]:
+    """Every generated file (path under docs/ -> bytes); ``hyperprior`` is the history prior's, for theme pages."""
     if progress:
         progress(f"{len(entries)} tests")
     effects: list[Effect] = [e for entry in entries for e in entry.effects]
     by_theme: PoolResult | None = pool(effects, "theme", permutations=200) if effects else None
     by_area: PoolResult | None = pool(effects, "page_area", permutations=0) if effects else None
-    data = pages.site_data(entries, by_theme, by_area)
+    data = pages.site_data(entries, by_theme, by_area, hyperprior)
     files: dict[str, bytes] = {}
 
     def add(path: str, text: str | bytes) -> None:
@@ -198,6 +203,7 @@ def build_site(
     progress: Callable[[str], None] | None = None,
     entries: list[TestEntry] | None = None,
     force: bool = False,
+    hyperprior: Hyperprior = DEFAULT_HYPERPRIOR,
 ) -> BuildReport:
     """Build the site in ``out`` (see the module text) from ``entries``, which come from the store
     (:meth:`archive.Archive.build_site`); without them the records folder is synced into an in-memory store first.
@@ -211,7 +217,7 @@ def build_site(
     start = time.perf_counter()
     if entries is None:
         entries = entries_for_folder(records_dir)
-    files = generate(entries, progress)
+    files = generate(entries, progress, hyperprior)
     report.pages = sum(1 for name in files if name.endswith(".md"))
     report.written, report.removed = write_docs(out, files)
     config = inside(out, "mkdocs.yml")

@@ -13,6 +13,7 @@ import re
 from collections import defaultdict
 from dataclasses import dataclass
 
+from archive.planning.hyperprior import DEFAULT_HYPERPRIOR, Hyperprior
 from archive.planning.priors import lift_prior
 from archive.pooling.groups import GroupResult, PoolResult
 from archive.records.model import Record, record_from_json
@@ -30,9 +31,15 @@ class SiteData:
     by_area: PoolResult | None
     follow_ups: dict[str, list[str]]
     shrunk: dict[tuple[str, str], float]  # (record, arm) -> lift shrunk toward its first theme
+    hyperprior: Hyperprior = DEFAULT_HYPERPRIOR  # of the history prior shown on theme pages
 
 
-def site_data(entries: list[TestEntry], by_theme: PoolResult | None, by_area: PoolResult | None) -> SiteData:
+def site_data(
+    entries: list[TestEntry],
+    by_theme: PoolResult | None,
+    by_area: PoolResult | None,
+    hyperprior: Hyperprior = DEFAULT_HYPERPRIOR,
+) -> SiteData:
     records = {e.id: record_from_json(e.record_json) for e in entries}
     follow: dict[str, list[str]] = defaultdict(list)
     for r in records.values():
@@ -45,7 +52,8 @@ def site_data(entries: list[TestEntry], by_theme: PoolResult | None, by_area: Po
             for m in g.members:
                 if first_theme.get(m.record_id) == g.key:
                     shrunk[(m.record_id, m.arm)] = m.shrunk_lift
-    return SiteData(entries, records, by_theme, by_area, {k: sorted(v) for k, v in follow.items()}, shrunk)
+    follow_ups = {k: sorted(v) for k, v in follow.items()}
+    return SiteData(entries, records, by_theme, by_area, follow_ups, shrunk, hyperprior)
 
 
 def test_link(record: Record, prefix: str = "../tests/") -> str:
@@ -193,7 +201,7 @@ def group_page(kind: str, group: GroupResult, data: SiteData, pooled: PoolResult
     if kind == "themes":
         effects = [e for entry in data.entries for e in entry.effects]
         try:
-            prior = lift_prior(effects, group.key)
+            prior = lift_prior(effects, group.key, hyper=data.hyperprior)
             low, high = prior.interval()
             rows.append(
                 (
