@@ -202,7 +202,7 @@ def calibrate(
             f"Priors use only tests that started earlier; the first {MIN_HISTORY} comparisons have no history.",
             "Each forecast is the history model's prior for the comparison's first theme: the theme's earlier "
             "tests, pulled toward the archive mean by as much as earlier tests say themes differ.",
-            hyper.label()[0].upper() + hyper.label()[1:] + ".",
+            hyper.label(),
             "Well calibrated: coverage near 95% with narrow intervals, a low Brier score, and in the reliability "
             "table each bin's mean forecast inside the interval of its observed share.",
             "The running win rate is the baseline to beat: a history prior that does not beat it adds nothing "

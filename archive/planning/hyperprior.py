@@ -3,6 +3,7 @@ so that reading an archive's settings does not load the statistics."""
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 
@@ -15,13 +16,15 @@ class Hyperprior:
     spread_max: float = 0.3  # tau and omega range over [0, spread_max]; tau uniform there
 
     def __post_init__(self) -> None:
-        if not (self.mean_sd > 0 and self.between_themes_scale > 0 and self.spread_max > 0):
+        scales = (self.mean_sd, self.between_themes_scale, self.spread_max)
+        if not all(math.isfinite(x) and x > 0 for x in scales):
             raise ValueError("the hyperprior's scales must be > 0")
 
     def label(self) -> str:
+        """The hyperprior as a sentence, for the assumptions of every answer that uses it."""
         return (
-            f"hyperprior: archive mean log lift ~ Normal(0, {self.mean_sd:g}^2), between-theme sd ~ "
-            f"half-normal({self.between_themes_scale:g}), within-theme sd uniform on [0, {self.spread_max:g}]"
+            f"Hyperprior: archive mean log lift ~ Normal(0, {self.mean_sd:g}^2), between-theme sd ~ "
+            f"half-normal({self.between_themes_scale:g}), within-theme sd uniform on [0, {self.spread_max:g}]."
         )
 
 

@@ -215,7 +215,7 @@ def plan_test(
                 f"tests of this kind rarely move conversion by that much here: the hoped-for +{minimum_lift:.1%} "
                 f"lies above the 95% prediction interval (up to {high:+.1%})"
             )
-        result.assumptions.append(f"Prior: {prior.label()}; {prior.hyperprior}.")
+        result.assumptions.append(f"Prior: {prior.label()}. {prior.hyperprior}")
     if theme_win_rate is not None:
         from archive.analysis.verdict import VerdictRules, null_ship_rates
         from archive.pooling.groups import false_positive_risk, fpr_from_prior

@@ -40,7 +40,7 @@ def prior_memo(prior: LiftPrior, baseline: BaselinePrior | None, lift: float | N
     assumptions = [
         "Three-level normal model of the trusted comparisons on the log scale: tests within their first theme, "
         "themes within the archive (Gelman et al., BDA3 ch. 5); each comparison counted once.",
-        prior.hyperprior[0].upper() + prior.hyperprior[1:] + ".",
+        prior.hyperprior,
         "The lift prior is by theme; the page area sets only the baseline conversion rate.",
     ]
     return Memo(
@@ -104,7 +104,7 @@ def informed_section(items: list[InformedLift], prior: LiftPrior) -> Section:
         "With the history prior",
         paragraphs=[
             f"{prior.label()}; combined with each comparison's normal likelihood of the log lift.",
-            prior.hyperprior[0].upper() + prior.hyperprior[1:] + ".",
+            prior.hyperprior,
         ]
         + ([f"Warning: {prior.warning}."] if prior.warning else []),
         tables=[table],
