@@ -111,7 +111,7 @@ def test_history_hyperprior_is_an_archive_setting(archive_dir: Path) -> None:
     code, _, err = run("prior", "--theme", "social-proof", "--records", str(archive_dir / "records"))
     assert code != 0 and "archive-settings.yaml:1: history_prior.between_theme_scale: unknown setting" in err
     (archive_dir / "archive-settings.yaml").write_text("history_prior:\n  mean_sd: -1\n")
-    with pytest.raises(ValueError, match="history_prior: the hyperprior's scales must be > 0"):
+    with pytest.raises(ValueError, match="history_prior: the hyperprior's scales must be finite and > 0"):
         Archive.open(archive_dir).prior("social-proof")
 
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import math
 import shutil
@@ -118,7 +119,7 @@ def test_informed_lift_is_the_normal_normal_update() -> None:
     assert result.shrunk_lift < 0.05 < 0.15  # a surprising +15% on a theme that rarely exceeds +2% shrinks hard
 
 
-def test_prior_falls_back_with_a_warning() -> None:
+def test_prior_for_a_tested_and_an_untested_theme() -> None:
     _, effects = load_archive_effects(ROOT / "records")
     direct = lift_prior(effects, "social-proof")
     assert direct.warning is None and direct.comparisons >= 5 and 0 < direct.weight_on_theme < 1
@@ -126,6 +127,60 @@ def test_prior_falls_back_with_a_warning() -> None:
     assert whole.comparisons == 0 and whole.weight_on_theme == 0 and "no comparison" in (whole.warning or "")
     assert whole.sd > direct.sd  # a theme never tested gets the archive mean widened by the between-theme spread
     assert "half-normal" in direct.hyperprior  # the prior used is stated
+
+
+def test_history_grid_integrates_the_stated_hyperprior() -> None:
+    # With no information in the data (variances of 1e6) the posterior is the hyperprior: E[tau^2] under tau uniform
+    # on [0, 0.3] is 0.3^2 / 3 = 0.03, E[omega] under omega half-normal(0.02) truncated at 0.3 is 0.02 sqrt(2 / pi)
+    # to 1e-100 (scipy.stats.halfnorm(scale=0.02).mean()); the 48-point grid integrates both to about 1e-3.
+    from scipy.stats import halfnorm
+
+    from archive.planning.priors import DEFAULT_HYPERPRIOR, fit_history, history_grid
+
+    tau2, omega2, log_prior = history_grid(DEFAULT_HYPERPRIOR)
+    sums = ThemeSums.empty(tau2, 3)
+    sums.add(np.array([0.1, -0.2, 0.05]), np.full(3, 1e6), np.array([0, 1, 2]))
+    post = fit_history(sums, omega2, log_prior, DEFAULT_HYPERPRIOR.mean_sd).predict(0)
+    assert post.tau2 == pytest.approx(0.3**2 / 3, rel=2e-3)
+    assert post.omega == pytest.approx(halfnorm(scale=0.02).mean(), rel=2e-3)
+
+
+def test_refined_grid_agrees_with_a_fine_grid_on_a_large_archive() -> None:
+    # 3,000 invented comparisons of large tests (v 1e-5 to 1e-4) pin tau down far below the coarse spacing: the
+    # refined answer must match a brute-force 1,200 x 1,200 grid (same model, same prior) to 1e-3 of the sd.
+    import archive.planning.priors as priors
+
+    rng = np.random.default_rng(5)
+    theme = rng.integers(0, 12, 3000)
+    v = rng.uniform(1e-5, 1e-4, 3000)
+    y = rng.normal(0.01, 0.015, 12)[theme] + rng.normal(0, np.sqrt(v + 0.0004))
+    hyper = priors.DEFAULT_HYPERPRIOR
+    coarse_grid = priors.history_grid(hyper)
+    sums = ThemeSums.empty(coarse_grid[0], 12)
+    sums.add(y, v, theme)
+    coarse = priors.fit_history(sums, coarse_grid[1], coarse_grid[2], hyper.mean_sd)
+    assert coarse.weights.max() > priors.REFINE_ABOVE  # the case the refinement is for
+    refined = priors.fit_refined(y, v, theme, 12, hyper, coarse).predict(3)
+    u = (np.arange(1200) + 0.5) / 1200
+    spread = hyper.spread_max * u**2
+    log_prior = np.log(u)[:, None] + (np.log(u) - spread**2 / (2 * hyper.between_themes_scale**2))[None, :]
+    fine_sums = ThemeSums.empty(spread**2, 12)
+    fine_sums.add(y, v, theme)
+    fine = priors.fit_history(fine_sums, spread**2, log_prior, hyper.mean_sd).predict(3)
+    assert refined.sd == pytest.approx(fine.sd, rel=1e-3) and refined.mean == pytest.approx(fine.mean, abs=1e-6)
+    assert abs(coarse.predict(3).sd - fine.sd) > abs(refined.sd - fine.sd)
+
+
+def test_a_secondary_theme_counts_its_comparisons() -> None:
+    _, effects = load_archive_effects(ROOT / "records")
+    tagged = [
+        dataclasses.replace(e, themes=[*e.themes, "free-returns"]) if e.themes[0] == "shipping-cost" else e
+        for e in effects
+    ]
+    prior = lift_prior(tagged, "free-returns")
+    shipping = lift_prior(effects, "shipping-cost")
+    assert prior.comparisons == shipping.comparisons > 0 and prior.warning is None
+    assert prior.mean == pytest.approx(shipping.mean, rel=1e-12) and prior.sd == pytest.approx(shipping.sd, rel=1e-12)
 
 
 def _history_sums(rng: np.random.Generator) -> tuple[ThemeSums, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:

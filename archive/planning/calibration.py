@@ -1,8 +1,12 @@
 """Was the history worth using? Replaying the archive in date order with priors built only from earlier tests.
 
 For each trusted comparison, in the order its test started, the prior is the history model's
-(:mod:`archive.planning.priors`) for its first theme, fitted to the comparisons of tests that started earlier
-(none before ``MIN_HISTORY`` earlier comparisons exist). Two forecasts are scored against what the test then showed:
+(:mod:`archive.planning.priors`) for its first theme (every comparison counted in its first theme), fitted to the
+comparisons of tests that started earlier (none before ``MIN_HISTORY`` earlier comparisons exist). The replay keeps
+the model's sums on the fixed coarse grid and grows them date by date; unlike ``archive prior`` it does not refine
+the grid, so in a very large archive its predictive sd can be a few percent off the refined value.
+
+Two forecasts are scored against what the test then showed:
 
 * the 95% predictive interval of the observed log lift, Normal(mu, sd^2 + se^2): its coverage and mean width;
 * P(significant win) = P(y / se > z) under that predictive distribution, scored by the Brier score against
@@ -140,6 +144,8 @@ def _replay(
         key=lambda e: (e.started or dt.date.min, e.record_id, e.arm),
     )
     names, index = primary_themes(trusted)
+    y = np.array([e.log_rr for e in trusted])
+    v = np.array([e.variance for e in trusted])
     tau2, omega2, log_prior = history_grid(hyper)
     sums = ThemeSums.empty(tau2, len(names))
     history_rows: list[Row] = []
@@ -164,11 +170,7 @@ def _replay(
             flat_rows.append(_forecast(0.0, FLAT_SD, e))
             running_rows.append((wins + 0.5) / (earlier + 1))
         if day is not None:
-            sums.add(
-                np.array([trusted[i].log_rr for i in block]),
-                np.array([trusted[i].variance for i in block]),
-                index[start:stop],
-            )
+            sums.add(y[start:stop], v[start:stop], index[start:stop])
             earlier += len(block)
             wins += sum(trusted[i].log_rr / trusted[i].se > Z for i in block)
         start = stop

@@ -18,7 +18,7 @@ class Hyperprior:
     def __post_init__(self) -> None:
         scales = (self.mean_sd, self.between_themes_scale, self.spread_max)
         if not all(math.isfinite(x) and x > 0 for x in scales):
-            raise ValueError("the hyperprior's scales must be > 0")
+            raise ValueError("the hyperprior's scales must be finite and > 0")
 
     def label(self) -> str:
         """The hyperprior as a sentence, for the assumptions of every answer that uses it."""

@@ -4,8 +4,10 @@ The prior for a new test's true relative lift comes from a three-level normal mo
 comparisons (a hierarchical normal model, Gelman et al., BDA3 ch. 5; in meta-analysis the three-level model of
 Konstantopoulos 2011), on the log of (1 + lift):
 
-* each comparison's estimate y_i ~ Normal(theta_i, v_i), v_i its sampling variance;
-* a comparison's true effect theta_i ~ Normal(mu_j, tau^2) around the mean mu_j of its theme j (its first theme);
+* each comparison's estimate y_i ~ Normal(theta_i, v_i), v_i its variance with a shared control split evenly
+  across the comparisons of its test (Cochrane Handbook), the comparisons taken as independent;
+* a comparison's true effect theta_i ~ Normal(mu_j, tau^2) around the mean mu_j of its theme j (the theme asked
+  about when the comparison carries it, else its first theme: each comparison counts once);
 * theme means mu_j ~ Normal(M, omega^2) around the archive-wide mean M.
 
 The hyperprior (:class:`archive.planning.hyperprior.Hyperprior`, stated with every prior; an archive may set it
@@ -13,7 +15,8 @@ under ``history_prior:`` in ``archive-settings.yaml``) is weakly informative on 
 conversion lifts: M ~ Normal(0, 0.03^2) (the average true lift over all kinds of change lies within about +/-6%),
 omega ~ half-normal(0.02) (kinds of change differ in their average lift by a few percent), tau uniform on
 [0, 0.3]. M and the theme means are integrated out in closed form; tau and omega on a grid (``GRID`` x ``GRID``
-points, denser near zero). The prior for a new test of theme j is the posterior predictive of a new comparison's
+points, denser near zero, refined around the posterior mass when a large archive pins them down more finely than
+that). The prior for a new test of theme j is the posterior predictive of a new comparison's
 true effect in that theme: a mixture of normals over the grid, summarised by its mean and standard deviation
 (:class:`LiftPrior`). A theme with few comparisons is pulled toward the archive mean by as much as the data say
 themes differ; a theme with none gets the archive mean with the between-theme spread.
@@ -37,8 +40,7 @@ from archive.pooling.groups import MIN_GROUP, beta_binomial_fit
 from archive.records.model import Record
 
 GRID = 48  # grid points for tau and for omega
-
-
+REFINE_ABOVE = 0.05  # a grid point holding more posterior weight than this: refine the grid around the mass
 
 
 @dataclass(frozen=True)
@@ -73,8 +75,8 @@ class LiftPrior:
         low, high = self.interval()
         return (
             f"history prior from {self.source}: log(1 + lift) ~ Normal({self.mean:+.4f}, {self.sd:.4f}^2), i.e. lift "
-            f"{self.lift:+.1%}, 95% [{low:+.1%}, {high:+.1%}]; the theme's own tests carry "
-            f"{self.weight_on_theme:.0%} of its mean"
+            f"{self.lift:+.1%}, 95% [{low:+.1%}, {high:+.1%}]; {self.weight_on_theme:.0%} of its mean comes "
+            "directly from the theme's own tests"
         )
 
 
@@ -204,27 +206,56 @@ def predictive(
     return fit_history(sums, omega2, log_prior, mean_sd).predict(theme)
 
 
-def primary_themes(effects: Sequence[Effect]) -> tuple[list[str], np.ndarray]:
-    names = sorted({e.themes[0] for e in effects})
+def fit_refined(
+    y: np.ndarray, v: np.ndarray, theme: np.ndarray, themes: int, hyper: Hyperprior, coarse: HistoryPosterior
+) -> HistoryPosterior:
+    """``coarse`` again, on a finer grid where its posterior sits on few grid points (a large archive pins tau and
+    omega down to less than the coarse spacing): ``GRID`` equal slices of each range that holds weight, one coarse
+    point beyond it either side, with the prior density at their midpoints (tau uniform, omega half-normal); the
+    sums are rebuilt from the comparisons (``y``, ``v``, theme indices)."""
+    if float(np.max(coarse.weights)) <= REFINE_ABOVE:
+        return coarse
+
+    def finer(coarse_values: np.ndarray, marginal: np.ndarray) -> np.ndarray:
+        held = np.nonzero(marginal > 1e-12)[0]
+        low = 0.0 if held[0] == 0 else float(coarse_values[held[0] - 1])
+        high = float(coarse_values[min(held[-1] + 1, len(coarse_values) - 1)])
+        return low + (np.arange(GRID) + 0.5) / GRID * (high - low)
+
+    tau = finer(np.sqrt(coarse.tau2[:, 0]), np.sum(coarse.weights, axis=1))
+    omega = finer(np.sqrt(coarse.omega2[0]), np.sum(coarse.weights, axis=0))
+    log_prior = np.broadcast_to(-(omega**2) / (2 * hyper.between_themes_scale**2), (GRID, GRID))
+    sums = ThemeSums.empty(tau**2, themes)
+    sums.add(y, v, theme)
+    return fit_history(sums, omega**2, np.ascontiguousarray(log_prior), hyper.mean_sd)
+
+
+def primary_themes(effects: Sequence[Effect], prefer: str | None = None) -> tuple[list[str], np.ndarray]:
+    """Theme names and each comparison's theme index: its first theme, or ``prefer`` when it carries that one (so
+    that every comparison of the theme asked about counts for it, and each comparison still counts once)."""
+    chosen = [prefer if prefer is not None and prefer in e.themes else e.themes[0] for e in effects]
+    names = sorted(set(chosen))
     index = {name: i for i, name in enumerate(names)}
-    return names, np.array([index[e.themes[0]] for e in effects], dtype=int)
+    return names, np.array([index[c] for c in chosen], dtype=int)
 
 
 def lift_prior(
     effects: list[Effect], theme: str, page_area: str | None = None, hyper: Hyperprior = DEFAULT_HYPERPRIOR
 ) -> LiftPrior:
-    """The prior for a new test of ``theme`` from the archive's trusted comparisons (each counted once, in its
-    first theme). ``page_area`` is accepted for the caller's convenience: the lift prior is by theme; the page
-    area sets the baseline rate (:func:`baseline_prior`)."""
+    """The prior for a new test of ``theme`` from the archive's trusted comparisons (each counted once: in
+    ``theme`` when it carries it, else in its first theme). ``page_area`` is accepted for the caller's convenience:
+    the lift prior is by theme; the page area sets the baseline rate (:func:`baseline_prior`)."""
     trusted = [e for e in effects if e.trusted and not e.double_zero]
     if len(trusted) < 2:
         raise ValueError("the archive needs at least two trusted comparisons to build a prior")
-    names, index = primary_themes(trusted)
+    names, index = primary_themes(trusted, prefer=theme)
+    y, v = np.array([e.log_rr for e in trusted]), np.array([e.variance for e in trusted])
     tau2, omega2, log_prior = history_grid(hyper)
     sums = ThemeSums.empty(tau2, len(names))
-    sums.add(np.array([e.log_rr for e in trusted]), np.array([e.variance for e in trusted]), index)
+    sums.add(y, v, index)
     j = names.index(theme) if theme in names else None
-    post = predictive(sums, j, omega2, log_prior, hyper.mean_sd)
+    fitted = fit_refined(y, v, index, len(names), hyper, fit_history(sums, omega2, log_prior, hyper.mean_sd))
+    post = fitted.predict(j)
     k = 0 if j is None else int(sums.counts[j])
     source = (
         f"theme {theme} ({k} comparisons) within the whole archive ({len(trusted)} comparisons, {len(names)} themes)"
@@ -232,8 +263,8 @@ def lift_prior(
     warning = None
     if k < MIN_GROUP:
         warning = (
-            f"only {k} comparison(s) of theme {theme}: they carry {post.weight_on_theme:.0%} of the prior's mean, the "
-            "whole archive the rest"
+            f"only {k} comparison(s) of theme {theme}: {post.weight_on_theme:.0%} of the prior's mean comes directly "
+            "from their average, the rest from the archive-wide average (which includes them) and the hyperprior"
             if k
             else f"no comparison of theme {theme} yet: the whole archive's prior, widened by how much themes differ"
         )
@@ -299,7 +330,7 @@ def prior_yaml(prior: LiftPrior, baseline: BaselinePrior | None) -> str:
     lines += [
         f"  prior:  # expected lift {prior.lift:+.2%}, 95% {low:+.2%} to {high:+.2%}; "
         f"P(lift > 0) {prior.prob_above(0.0):.2f}",
-        f"    source: {prior.source} ({prior.comparisons} comparisons)",
+        f"    source: {prior.source}",
         f"    mean_log_lift: {prior.mean:.6f}",
         f"    sd_log_lift: {prior.sd:.6f}",
     ]

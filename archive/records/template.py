@@ -292,7 +292,7 @@ def render_plan(draft: Draft, result, weights: list[float], prior) -> str:  # ty
         draft.plan["days"] = result.days
     if prior is not None:
         draft.plan["prior"] = {
-            "source": f"{prior.source} ({prior.comparisons} comparisons)",
+            "source": prior.source,
             "mean_log_lift": round(prior.mean, 6),
             "sd_log_lift": round(prior.sd, 6),
         }

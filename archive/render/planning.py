@@ -14,20 +14,24 @@ from archive.render.model import Memo, Section, Table
 def prior_memo(prior: LiftPrior, baseline: BaselinePrior | None, lift: float | None) -> Memo:
     low, high = prior.interval()
     lead = [
-        f"From {prior.source}: expect a true lift around {pct(prior.lift, 1, True)}; 95% of such tests land between "
-        f"{pct(low, 1, True)} and {pct(high, 1, True)}; the chance it helps at all is {prior.prob_above(0.0):.0%}.",
-        f"The theme's own tests carry {prior.weight_on_theme:.0%} of that expectation; the rest comes from the "
-        "whole archive, because kinds of change differ less than single tests do.",
-        f"Technically: {prior.label()}.",
+        f"From {prior.source}: expect a true lift around {pct(prior.lift, 1, True)}; the true lifts of 95% of such "
+        f"tests lie between {pct(low, 1, True)} and {pct(high, 1, True)}; the chance it helps at all is "
+        f"{prior.prob_above(0.0):.0%}.",
     ]
+    if prior.comparisons:
+        lead.append(
+            f"{prior.weight_on_theme:.0%} of that expectation comes directly from the average of the theme's own "
+            "tests; the rest from the archive-wide average (which includes them) and the hyperprior."
+        )
+    lead.append(f"Technically: {prior.label()}.")
     if prior.warning:
         lead.append(f"Warning: {prior.warning}.")
     bullets = [
         f"P(true lift > 0) = {prior.prob_above(0.0):.3f}",
         f"expected lift {pct(prior.lift, 2, True)}; 95% of true lifts of such tests between {pct(low, 1, True)} and "
-        f"{pct(high, 1, True)}",
-        f"true lifts of tests within a theme spread by sd {math.sqrt(prior.tau2):.4f} on the log scale; theme "
-        f"averages differ by sd {prior.omega:.4f} (posterior means)",
+        f"{pct(high, 1, True)} (a normal summary of the model's predictive mixture)",
+        f"true lifts of tests within a theme spread by sd {math.sqrt(prior.tau2):.4f} on the log scale (square root "
+        f"of the posterior mean of tau²); theme averages differ by sd {prior.omega:.4f} (posterior mean of omega)",
     ]
     if lift is not None:
         bullets.append(f"P(true lift > {pct(lift, 1, True)}) = {prior.prob_above(lift):.3f}")
@@ -38,8 +42,10 @@ def prior_memo(prior: LiftPrior, baseline: BaselinePrior | None, lift: float | N
             f"{baseline.controls} control arms, mean {pct(baseline.mean, 2)}, 95% [{pct(b_low, 2)}, {pct(b_high, 2)}]"
         )
     assumptions = [
-        "Three-level normal model of the trusted comparisons on the log scale: tests within their first theme, "
-        "themes within the archive (Gelman et al., BDA3 ch. 5); each comparison counted once.",
+        "Three-level normal model of the trusted comparisons on the log scale: tests within their theme, themes "
+        "within the archive (Gelman et al., BDA3 ch. 5); each comparison counted once (in this theme when it "
+        "carries it, else in its first); the comparisons of a multi-arm test enter as independent, with the "
+        "shared control split evenly across them.",
         prior.hyperprior,
         "The lift prior is by theme; the page area sets only the baseline conversion rate.",
     ]

@@ -207,7 +207,7 @@ def group_page(kind: str, group: GroupResult, data: SiteData, pooled: PoolResult
                 (
                     "prior for a new test",
                     f"{pct(prior.lift, 1, True)} [{pct(low, 1, True)}, {pct(high, 1, True)}], "
-                    f"P(lift > 0) {prior.prob_above(0):.2f}",
+                    f"P(lift > 0) {prior.prob_above(0):.2f} (three-level model; {md_text(prior.hyperprior)})",
                 )
             )
         except ValueError:
