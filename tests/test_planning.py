@@ -14,7 +14,7 @@ from typer.testing import CliRunner
 
 from archive.cli.main import app
 from archive.planning.plan import assurance, dunnett_critical, exaggeration, plan_test
-from archive.planning.priors import LiftPrior, ThemeSums, informed_lift, lift_prior, predictive
+from archive.planning.priors import LiftPrior, ThemeSums, fit_history, informed_lift, lift_prior
 from archive.pooling.effects import Effect, load_archive_effects
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -135,7 +135,7 @@ def test_history_grid_integrates_the_stated_hyperprior() -> None:
     # to 1e-100 (scipy.stats.halfnorm(scale=0.02).mean()); the 48-point grid integrates both to about 1e-3.
     from scipy.stats import halfnorm
 
-    from archive.planning.priors import DEFAULT_HYPERPRIOR, fit_history, history_grid
+    from archive.planning.priors import DEFAULT_HYPERPRIOR, history_grid
 
     tau2, omega2, log_prior = history_grid(DEFAULT_HYPERPRIOR)
     sums = ThemeSums.empty(tau2, 3)
@@ -206,7 +206,7 @@ def test_history_model_matches_gaussian_conditioning(target: int) -> None:
     omega2 = np.array([1e-4, 6e-4])
     log_prior = np.log(rng.uniform(0.2, 1.0, (3, 2)))
     mean_sd = 0.03
-    post = predictive(sums, target, omega2, log_prior, mean_sd)
+    post = fit_history(sums, omega2, log_prior, mean_sd).predict(target)
     same = (theme[:, None] == theme[None, :]).astype(float)
     log_w, means, variances = np.zeros((3, 2)), np.zeros((3, 2)), np.zeros((3, 2))
     for i, t2 in enumerate(tau2):
@@ -237,7 +237,7 @@ def test_history_model_on_the_eight_schools() -> None:
     sums.add(y, sigma**2, np.arange(8))
     omega = np.linspace(0.005, 79.995, 8000)
     for school, expected in table.items():
-        post = predictive(sums, school, omega**2, np.zeros((1, len(omega))), 1e8)
+        post = fit_history(sums, omega**2, np.zeros((1, len(omega))), 1e8).predict(school)
         got = [optimize.brentq(lambda x, p=p, f=post.cdf: f(x) - p, -200, 200) for p in (0.025, 0.25, 0.5, 0.75, 0.975)]
         for value, published, tolerance in zip(got, expected, (4, 2, 1.5, 2, 4), strict=True):
             assert abs(value - published) <= tolerance, (school, got)

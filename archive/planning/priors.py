@@ -198,14 +198,6 @@ def fit_history(sums: ThemeSums, omega2: np.ndarray, log_prior: np.ndarray, mean
     return HistoryPosterior(p, sums.tau2[:, None], omega2[None, :], s, ybar, m_hat, total, column)
 
 
-def predictive(
-    sums: ThemeSums, theme: int | None, omega2: np.ndarray, log_prior: np.ndarray, mean_sd: float
-) -> Predictive:
-    """Posterior predictive of a new comparison's true effect in ``theme`` (:func:`fit_history`, then
-    :meth:`HistoryPosterior.predict`)."""
-    return fit_history(sums, omega2, log_prior, mean_sd).predict(theme)
-
-
 def fit_refined(
     y: np.ndarray, v: np.ndarray, theme: np.ndarray, themes: int, hyper: Hyperprior, coarse: HistoryPosterior
 ) -> HistoryPosterior:
