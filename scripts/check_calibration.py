@@ -25,20 +25,18 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 import make_demo  # noqa: E402
 
-from archive.planning.calibration import BIN_EDGES, reliability_table  # noqa: E402
-from archive.planning.calibration import calibrate as replay  # noqa: E402
+from archive.planning.calibration import BIN_EDGES, reliability_table, replay, scores  # noqa: E402
 from archive.pooling.effects import load_archive_effects  # noqa: E402
 
 
 def replay_seed(seed: int) -> dict[str, Any]:
     """Build the archive of ``seed`` in a temporary folder and replay it: the history forecasts with outcomes."""
-    from archive.planning import calibration
-
     with tempfile.TemporaryDirectory() as folder:
         make_demo.write_archive(make_demo.build_archive(seed), Path(folder))
         _, effects = load_archive_effects(Path(folder))
-    result = replay(effects)
-    rows = calibration.forecast_rows(effects)
+    done = replay(effects)
+    result = scores(done)
+    rows = done.forecasts()
     return {
         "seed": seed,
         "rows": rows,

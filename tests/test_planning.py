@@ -270,9 +270,10 @@ def test_history_forecasts_are_calibrated_on_the_demo_generator(generator_archiv
     # seeds: forecasts under 5% averaged 2.4% against 6.3% observed. scripts/check_calibration.py runs 40 seeds.
     from scipy import stats
 
-    from archive.planning.calibration import calibrate, forecast_rows, reliability_table
+    from archive.planning.calibration import reliability_table, replay, scores
 
-    rows = [row for effects in generator_archives for row in forecast_rows(effects)]
+    replays = [replay(effects) for effects in generator_archives]
+    rows = [row for done in replays for row in done.forecasts()]
     assert len(rows) > 600
     checked = 0
     for b in reliability_table(rows):
@@ -283,7 +284,7 @@ def test_history_forecasts_are_calibrated_on_the_demo_generator(generator_archiv
         assert low <= (b.mean_forecast or 0.0) <= high, b
         checked += 1
     assert checked >= 4
-    history = [calibrate(effects) for effects in generator_archives]
+    history = [scores(done) for done in replays]
     pooled = {
         name: np.mean([getattr(c, name).brier for c in history if getattr(c, name)]) for name in ("history", "flat")
     }

@@ -32,14 +32,8 @@ import numpy as np
 from scipy import special, stats
 
 from archive.analysis import json_safe
-from archive.planning.priors import (
-    DEFAULT_HYPERPRIOR,
-    Hyperprior,
-    ThemeSums,
-    fit_history,
-    history_grid,
-    primary_themes,
-)
+from archive.planning.hyperprior import DEFAULT_HYPERPRIOR, Hyperprior
+from archive.planning.priors import ThemeSums, fit_history, history_grid, primary_themes
 from archive.pooling.effects import Effect
 from archive.pooling.groups import jeffreys
 
@@ -132,13 +126,27 @@ def reliability_table(rows: list[tuple[float, bool]]) -> list[ReliabilityBin]:
     return out
 
 
-def _replay(
-    effects: list[Effect], hyper: Hyperprior, progress: Callable[[int, int], None] | None = None
-) -> tuple[list[Row], list[Row], list[float], int]:
+@dataclass
+class Replay:
+    """The forecasts of a replay, before scoring: per forecast comparison its history and flat-prior rows and the
+    running win rate, and how many comparisons had too little history."""
+
+    history: list[Row]
+    flat: list[Row]
+    running: list[float]
+    skipped: int
+
+    def forecasts(self) -> list[tuple[float, bool]]:
+        """(history forecast of P(significant win), won) pairs, e.g. for pooling over archives."""
+        return [(r[0], r[3]) for r in self.history]
+
+
+def replay(
+    effects: list[Effect], hyper: Hyperprior = DEFAULT_HYPERPRIOR, progress: Callable[[int, int], None] | None = None
+) -> Replay:
     """Replay the archive in start-date order. The history model's sufficient statistics grow test date by test
-    date, so each forecast sees exactly the comparisons of tests that started earlier (undated ones never).
-    Returns the history rows, the flat-prior rows, the running win rates and the number skipped; ``progress`` is
-    told (comparisons done, all comparisons) after each test date."""
+    date, so each forecast sees exactly the comparisons of tests that started earlier (undated ones never);
+    ``progress`` is told (comparisons done, all comparisons) after each test date."""
     trusted = sorted(
         (e for e in effects if e.trusted and not e.double_zero),
         key=lambda e: (e.started or dt.date.min, e.record_id, e.arm),
@@ -176,12 +184,7 @@ def _replay(
         start = stop
         if progress is not None:
             progress(stop, len(trusted))
-    return history_rows, flat_rows, running_rows, skipped
-
-
-def forecast_rows(effects: list[Effect], hyper: Hyperprior = DEFAULT_HYPERPRIOR) -> list[tuple[float, bool]]:
-    """The replay's (history forecast of P(significant win), won) pairs, for pooling over archives."""
-    return [(r[0], r[3]) for r in _replay(effects, hyper)[0]]
+    return Replay(history_rows, flat_rows, running_rows, skipped)
 
 
 def calibrate(
@@ -189,8 +192,13 @@ def calibrate(
     hyper: Hyperprior = DEFAULT_HYPERPRIOR,
     progress: Callable[[int, int], None] | None = None,
 ) -> Calibration:
+    """Replay the archive and score it (:func:`replay`, :func:`scores`)."""
+    return scores(replay(effects, hyper, progress), hyper)
+
+
+def scores(done: Replay, hyper: Hyperprior = DEFAULT_HYPERPRIOR) -> Calibration:
     """Score the history prior's forecasts against the flat prior and the running win rate (module docstring)."""
-    history_rows, flat_rows, running_rows, skipped = _replay(effects, hyper, progress)
+    history_rows, flat_rows, running_rows, skipped = done.history, done.flat, done.running, done.skipped
     won = [r[3] for r in history_rows]
     running = _score([(f, 0.0, False, w) for f, w in zip(running_rows, won, strict=True)])
     running.coverage = running.mean_width = None  # a win rate forecasts no interval of the lift
